@@ -50,6 +50,10 @@ def atomic_output(target: str | Path, *, inputs: Iterable[str | Path] = ()) -> I
     fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=folder)
     os.close(fd)
     tmp = Path(tmp_name)
+    # mkstemp creates 0600; give the output the permissions an ordinary open() would.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield tmp
         os.replace(tmp, target)
