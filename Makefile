@@ -28,7 +28,8 @@ bench: $(VENV)/.installed-test
 	$(BIN)/python -m benchmarks
 
 fixtures: $(VENV)/.installed-test
-	$(BIN)/python fixtures/make_fixtures.py
+	$(BIN)/python fixtures/make_subtitle_fixtures.py
+	$(BIN)/python fixtures/demo/make_lines.py
 
 typecheck: $(VENV)/.installed-test
 	$(BIN)/python -m mypy
