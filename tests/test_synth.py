@@ -93,14 +93,16 @@ def test_speech_truth_lies_where_dialogue_is_non_silent(layout: str) -> None:
 
 def test_cues_follow_the_speech() -> None:
     # Ground truth: the cue rule (in at onset, out 0.3 s after the end, to the millisecond)
-    # applied here to speech_truth, and the texts of the fixture lines.
+    # applied here to speech_truth, and the texts of the fixture lines (line-broken).
     prog = synth_programme(background="pink", n_lines=5, seed=2, sample_rate_hz=16000)
     texts = {line.number: line.text for line in load_lines()}
     assert len(prog.cues) == len(prog.speech_truth) == len(prog.line_numbers) == 5
     for cue, (a, b), number in zip(prog.cues, prog.speech_truth, prog.line_numbers):
         assert cue.start_s == pytest.approx(a, abs=0.0005)
         assert cue.end_s == pytest.approx(b + 0.3, abs=0.0005)
-        assert cue.text == texts[number]
+        # Broken into lines of at most 38 characters, words kept whole.
+        assert cue.text.replace("\n", " ") == texts[number]
+        assert all(len(line) <= 38 for line in cue.text.split("\n"))
 
 
 def test_same_seed_gives_identical_arrays_and_other_seed_differs() -> None:

@@ -268,7 +268,7 @@ def _truth(
     d_det = detection_signal(prog.dialogue, prog.layout)
     b_det = detection_signal(prog.background, prog.layout)
     script = {line.number: line for line in load_lines()}
-    by_text = {c.text: c for c in subs}
+    by_text = {c.text.replace("\n", " "): c for c in subs}  # keyed by the unbroken text
     scene_of = {n: k for k, s in enumerate(SCENES) for n in s.line_numbers}
     snr = {
         number: round(_snr_db(d_det, b_det, speech_mask([span], prog.n_samples, rate)), 3) + 0.0  # + 0.0: no -0.0
@@ -276,7 +276,7 @@ def _truth(
     }
     lines = []
     for number, span, cue in zip(prog.line_numbers, prog.speech_truth, prog.cues):
-        sub = by_text.get(cue.text)
+        sub = by_text.get(cue.text.replace("\n", " "))
         lines.append(
             {
                 "line": number,

@@ -17,6 +17,7 @@ for stereo, the channel itself for mono. The speech-active samples are, for each
 from __future__ import annotations
 
 import math
+import textwrap
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -172,14 +173,24 @@ def truth_cues(
 
     The out-time is pulled back where needed to keep :data:`MIN_CUE_GAP_S` before the next
     onset. Times are rounded to the millisecond (nearest, halves up), as a subtitle file holds them.
+    Text is broken into lines of at most :data:`CUE_LINE_CHARS` characters, as subtitlers do.
     """
     cues = []
     for i, ((start_s, end_s), text) in enumerate(zip(spans, texts, strict=True)):
         out_s = end_s + extension_s
         if i + 1 < len(spans):
             out_s = max(min(out_s, spans[i + 1][0] - MIN_CUE_GAP_S), end_s)
-        cues.append(Cue(index=i + 1, cue_id=str(i + 1), start_s=_ms(start_s), end_s=_ms(out_s), text=text))
+        cues.append(Cue(index=i + 1, cue_id=str(i + 1), start_s=_ms(start_s), end_s=_ms(out_s), text=_wrap(text)))
     return tuple(cues)
+
+
+#: Characters per subtitle line when the builder breaks a cue's text (under the 42 of
+#: the default house style; common practice for two-line cues).
+CUE_LINE_CHARS = 38
+
+
+def _wrap(text: str) -> str:
+    return "\n".join(textwrap.wrap(text, width=CUE_LINE_CHARS)) if "\n" not in text else text
 
 
 def _ms(t_s: float) -> float:
