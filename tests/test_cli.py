@@ -1,0 +1,133 @@
+"""The command line end to end on short synthesized programmes: outputs, exit codes, nothing written on bad input."""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+import pytest
+import soundfile as sf
+from typer.testing import CliRunner
+
+from planner.cli import app
+from planner.demo.synth import distort_cues, synth_programme, write_programme
+
+runner = CliRunner()
+
+
+def _run(*args: str | Path) -> tuple[int, str]:
+    result = runner.invoke(app, [str(a) for a in args], env={"COLUMNS": "100"})
+    return result.exit_code, result.output
+
+
+@pytest.fixture(scope="module")
+def episode(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    """A 6-line programme over music at +3 dB, subtitles 1.5 s early (ground truth built here)."""
+    folder = tmp_path_factory.mktemp("episode")
+    prog = synth_programme(background="music", snr_db=3.0, n_lines=6, seed=4)
+    subs = distort_cues(prog.cues, offset_s=1.5)
+    return write_programme(prog, folder, stems=True, subtitles=subs)
+
+
+def _csv_rows(path: Path) -> list[dict[str, str]]:
+    lines = [ln for ln in path.read_text(encoding="utf-8").splitlines() if not ln.startswith("#")]
+    return list(csv.DictReader(lines))
+
+
+def test_inspect_json_reports_layout_duration_and_cues(episode: dict[str, Path]) -> None:
+    code, out = _run("inspect", episode["mix"], episode["subtitles"], "--json", "--quiet")
+    assert code == 0, out
+    data = json.loads(out)
+    info = sf.info(str(episode["mix"]))  # reference: the file's own header via soundfile
+    assert data["audio"]["layout"] == "stereo"
+    assert data["audio"]["duration_s"] == pytest.approx(info.duration)
+    assert data["subtitles"]["cue_count"] == 6
+
+
+def test_align_finds_the_constructed_offset(episode: dict[str, Path], tmp_path: Path) -> None:
+    out_dir = tmp_path / "qc"
+    code, out = _run("align", episode["mix"], episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
+    assert code == 0, out
+    alignment = json.loads((out_dir / "alignment.json").read_text())["alignment"]
+    # Ground truth: distort_cues moved every cue 1.5 s early (t_subs = t_audio - 1.5).
+    assert alignment["segments"][0]["offset_s"] == pytest.approx(1.5, abs=0.05)
+    assert (out_dir / "retimed.srt").is_file()
+    assert len(_csv_rows(out_dir / "cues.csv")) == 6
+
+
+def test_analyse_stems_then_replan_without_audio(episode: dict[str, Path], tmp_path: Path) -> None:
+    out_dir = tmp_path / "mix"
+    code, out = _run(
+        "analyse", episode["subtitles"], "--dialogue", episode["dialogue"], "--background", episode["background"],
+        "--out", out_dir, "--vad", "fast", "--quiet",
+    )  # fmt: skip
+    assert code == 0, out
+    for name in ("analysis.json", "plan.json", "cues.csv", "events.csv", "plan.otio", "plan.edl", "retimed.srt"):
+        assert (out_dir / name).is_file(), name
+    rows = _csv_rows(out_dir / "cues.csv")
+    assert {r["method"] for r in rows} == {"stems"}
+    first = (out_dir / "plan.json").read_bytes()
+    code, out = _run("plan", out_dir, "--strength", "gentle")
+    assert code == 0, out
+    gentle = json.loads((out_dir / "plan.json").read_text())
+    assert gentle["settings"]["strength"] == 0.25
+    # Gentle allows at most 0.25 x the 12 dB maximum cut (docs/methods.md, "Strength").
+    assert all(e["background_gain_db"] >= -3.0 - 1e-9 for e in gentle["events"])
+    code, _ = _run("plan", out_dir)
+    assert code == 0
+    assert (out_dir / "plan.json").read_bytes() == first  # same settings, byte-identical plan
+
+
+def test_missing_file_exits_2_and_writes_nothing(tmp_path: Path, episode: dict[str, Path]) -> None:
+    out_dir = tmp_path / "never"
+    code, out = _run("analyse", tmp_path / "absent.wav", episode["subtitles"], "--out", out_dir, "--quiet")
+    assert code == 2
+    assert "absent.wav" in out and "Traceback" not in out
+    assert not out_dir.exists()
+
+
+def test_bad_subtitles_exit_2_naming_the_line(tmp_path: Path, episode: dict[str, Path]) -> None:
+    bad = tmp_path / "bad.srt"
+    bad.write_text("1\n00:00:01,000 --> 00:00:00,500\nBackwards.\n", encoding="utf-8")
+    out_dir = tmp_path / "never"
+    code, out = _run("align", episode["mix"], bad, "--out", out_dir, "--quiet")
+    assert code == 2
+    assert "line 2" in out
+    assert not out_dir.exists()
+
+
+@pytest.mark.parametrize(
+    ("args", "needle"),
+    [
+        (["--fps", "26"], "fps"),
+        (["--vad", "loud"], "vad"),
+        (["--hearing", "age-33"], "age-33"),
+    ],
+    ids=["fps", "vad", "hearing"],
+)
+def test_bad_option_values_exit_2(tmp_path: Path, episode: dict[str, Path], args: list[str], needle: str) -> None:
+    code, out = _run("analyse", episode["mix"], episode["subtitles"], "--out", tmp_path / "o", *args, "--quiet")
+    assert code == 2
+    assert needle in out
+    assert not (tmp_path / "o").exists()
+
+
+def test_stems_need_both_files(tmp_path: Path, episode: dict[str, Path]) -> None:
+    code, out = _run("analyse", episode["subtitles"], "--dialogue", episode["dialogue"], "--out", tmp_path / "o")
+    assert code == 2
+    assert "--background" in out
+
+
+def test_plan_refuses_a_hand_edited_positive_cut(episode: dict[str, Path], tmp_path: Path) -> None:
+    out_dir = tmp_path / "edit"
+    code, _ = _run("analyse", episode["mix"], episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
+    assert code == 0
+    plan = json.loads((out_dir / "plan.json").read_text())
+    if not plan["events"]:
+        pytest.skip("no event to edit in this programme")
+    plan["events"][0]["background_gain_db"] = 4.0
+    (out_dir / "plan.json").write_text(json.dumps(plan))
+    code, out = _run("report", out_dir, "--plain")
+    assert code == 2
+    assert plan["events"][0]["event_id"] in out and "background_gain_db" in out
