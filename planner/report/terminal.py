@@ -18,8 +18,8 @@ from rich.table import Table
 from rich.text import Text
 
 from planner.model import Analysis, Plan
-from planner.report.figures import VERDICT_ORDER, score_kind, summary, worst_cues, worst_timed
-from planner.report.palette import MOVE_COLOUR, UNCOVERED_COLOUR, VERDICT_COLOURS
+from planner.report.figures import VERDICT_ORDER, VerifiedCue, score_kind, summary, worst_cues, worst_timed
+from planner.report.palette import ACTION_COLOURS, MOVE_COLOUR, UNCOVERED_COLOUR, VERDICT_COLOURS
 from planner.report.views import (
     MOVE_SYMBOL,
     SHORT_SYMBOL,
@@ -27,12 +27,19 @@ from planner.report.views import (
     STRIP_SYMBOLS,
     Report,
     View,
-    VerifyRow,
     build_report,
+    report_json,
 )
 
 if TYPE_CHECKING:
     from planner.pipeline import Inspection
+    from planner.render.renderer import RenderReport
+    from planner.render.verify import VerifyReport
+
+__all__ = [
+    "print_alignment_summary", "print_inspection", "print_render", "print_report", "print_run_summary", "print_verify",
+    "report_json",
+]  # fmt: skip
 
 
 def _fmt(value: float | None, unit: str, digits: int = 1) -> str:
@@ -113,9 +120,8 @@ def _more(shown: int, total: int) -> str:
 
 def _draw_verdict(console: Console, report: Report, pen: _Pen) -> None:
     v = report.verdict
-    style = {"ok": VERDICT_COLOURS["clear"], "targeted-gains": VERDICT_COLOURS["at-risk"], "remix-needed": VERDICT_COLOURS["masked"]}
-    line = Text(v.action, style=pen.style(f"bold {style[v.action]}"))
-    line.append(v.line[len(v.action) :])
+    line = Text(v.action, style=pen.style(f"bold {ACTION_COLOURS[v.action]}"))
+    line.append(f": {v.why}")
     console.print(line)
     console.print(Text(f"confidence {v.confidence:.2f}, {v.moves} planned moves, {v.masked_cues} masked lines, "
                        f"{100 * v.flagged_share:.0f} % of the dialogue at risk or masked"))  # fmt: skip
@@ -212,7 +218,7 @@ def print_report(
     *,
     top: int = 10,
     view: View = "editor",
-    verify_rows: Sequence[VerifyRow] | None = None,
+    verify_rows: Sequence[VerifiedCue] | None = None,
     plain: bool = False,
 ) -> None:
     """The ranked report of a plan for one reader (``cueplan report``).
@@ -289,3 +295,56 @@ def print_alignment_summary(console: Console, analysis: Analysis, *, top: int = 
 
 def _ms(value: float | None) -> str:
     return "-" if value is None else f"{value:+.0f}"
+
+
+# ----------------------------------------------------------------------------- render and verify
+#: Printed after every render: what the output is and what it is not.
+LISTEN_CAUTION = "the output is loudness-normalised and peak-limited: listen to it before delivery"
+
+
+def print_render(console: Console, render: RenderReport, verify: VerifyReport | None = None, *, plain: bool = False) -> None:
+    """End of ``cueplan render``: loudness and true peak before and after, the limiter, then the verify counts."""
+    pen = _Pen(plain)
+
+    def lufs(v: float | None) -> str:
+        return "n/a" if v is None else f"{v:.1f} LUFS"
+
+    ok = {True: "within tolerance", False: "OUTSIDE tolerance", None: "no target"}[render.within_tolerance]
+    peak_ok = {True: "at or below the ceiling", False: "ABOVE the ceiling", None: "no ceiling"}[render.true_peak_ok]
+    lines = [
+        ("output", render.output_path),
+        ("standard", render.standard),
+        ("loudness", f"{lufs(render.loudness_before_lufs)} in, {lufs(render.loudness_after_lufs)} out ({ok}), "
+                     f"gain {render.gain_applied_db:+.1f} dB"),
+        ("true peak", f"{render.true_peak_before_dbtp:.1f} dBTP in, {render.true_peak_after_dbtp:.1f} dBTP out ({peak_ok})"),
+        ("limiter", f"{render.limiter_max_reduction_db:.1f} dB at most, active {render.limiter_active_s:.1f} s"),
+        ("events", f"{render.n_events} applied over {render.duration_s:.0f} s"),
+        *[("note", n) for n in render.notes],
+    ]  # fmt: skip
+    console.print(_summary_panel(lines, f"render ({render.kind})", pen))
+    console.print(pen.text(LISTEN_CAUTION, "yellow"))
+    if verify is not None:
+        print_verify(console, verify, plain=plain)
+
+
+def print_verify(console: Console, report: VerifyReport, *, plain: bool = False, top: int = 10) -> None:
+    """``cueplan verify``: how many planned cues reached the target, and the ``top`` furthest from it."""
+    pen = _Pen(plain)
+    console.print(Text(f"{report.n_cues_reached} of {report.n_cues} planned cues reached the target "
+                       f"({report.method} scoring, {report.n_cues_unscored} not scored); "
+                       f"{report.n_reachable_events_reached} of {report.n_events_reachable} reachable events"))  # fmt: skip
+    short = [r for r in report.rows if r.reached is False][: max(0, top)]
+    if short:
+        t = pen.table(f"short of the target ({len(short)} shown)")
+        for name in ("cue", "event", "before", "predicted", "measured", "target"):
+            t.add_column(name, justify="right" if name != "event" else "left", no_wrap=True)
+        for r in short:
+            t.add_row(Text(str(r.cue_index)), Text(r.event_id), Text(_num(r.score_before)), Text(_num(r.predicted_after)),
+                      Text(_num(r.measured_after)), Text(_num(r.target)))  # fmt: skip
+        console.print(t)
+    for note in report.notes:
+        console.print(pen.text(f"note: {note}", "yellow"))
+
+
+def _num(value: float | None) -> str:
+    return "-" if value is None else f"{value:.2f}"
