@@ -30,6 +30,14 @@ def episode(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     return write_programme(prog, folder, stems=True, subtitles=subs)
 
 
+@pytest.fixture(scope="module")
+def clean_episode(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    """8 lines over pink noise at +15 dB, subtitles 1.5 s early (ground truth built here)."""
+    folder = tmp_path_factory.mktemp("clean")
+    prog = synth_programme(background="pink", snr_db=15.0, n_lines=8, seed=4)
+    return write_programme(prog, folder, stems=False, subtitles=distort_cues(prog.cues, offset_s=1.5))
+
+
 def _csv_rows(path: Path) -> list[dict[str, str]]:
     lines = [ln for ln in path.read_text(encoding="utf-8").splitlines() if not ln.startswith("#")]
     return list(csv.DictReader(lines))
@@ -45,15 +53,15 @@ def test_inspect_json_reports_layout_duration_and_cues(episode: dict[str, Path])
     assert data["subtitles"]["cue_count"] == 6
 
 
-def test_align_finds_the_constructed_offset(episode: dict[str, Path], tmp_path: Path) -> None:
+def test_align_finds_the_constructed_offset(clean_episode: dict[str, Path], tmp_path: Path) -> None:
     out_dir = tmp_path / "qc"
-    code, out = _run("align", episode["mix"], episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
+    code, out = _run("align", clean_episode["mix"], clean_episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
     assert code == 0, out
     alignment = json.loads((out_dir / "alignment.json").read_text())["alignment"]
     # Ground truth: distort_cues moved every cue 1.5 s early (t_subs = t_audio - 1.5).
     assert alignment["segments"][0]["offset_s"] == pytest.approx(1.5, abs=0.05)
     assert (out_dir / "retimed.srt").is_file()
-    assert len(_csv_rows(out_dir / "cues.csv")) == 6
+    assert len(_csv_rows(out_dir / "cues.csv")) == 8
 
 
 def test_analyse_stems_then_replan_without_audio(episode: dict[str, Path], tmp_path: Path) -> None:
