@@ -1,0 +1,215 @@
+"""Per-frame powers of a programme, block by block: bands, K-weighted and flat, per listening view.
+
+Every 10 ms analysis frame gets, for each mono signal analysed, a feature vector of
+:data:`N_FEATURES` powers (mean square re digital full scale):
+
+- ``[0:18]`` the 18 ANSI S3.5 one-third-octave band powers (:class:`~planner.analysis.bands.BandAnalyzer`);
+- ``[K]`` the K-weighted power (ITU-R BS.1770-5 Annex 1, stages 1 and 2), so that
+  ``-0.691 + 10 log10(K)`` is the frame's loudness for that signal (Eq. 2);
+- ``[FLAT]`` the unweighted power (for the broadband WADA-SNR check).
+
+Frame ``j`` covers samples ``[floor(j h + 0.5), floor((j + 1) h + 0.5))``, ``h`` the hop in
+samples, and the band powers of the same frame are measured with windows centred on that
+hop; a signal of ``n`` samples has ``ceil(n / h)`` frames. :class:`ProgrammeFeatures` combines
+the per-signal vectors into what the listener hears (loudspeaker powers summed with the
+BS.1770 channel weights, Table 3: 1.0 for L, R, C, 1.41 for Ls, Rs, LFE left out) and into the
+spatial views the mix-only estimators need (stereo mid/side; 5.1 centre/others; the ITU-R
+BS.775 stereo fold-down). Memory: one block of input plus the band analysers' overlap.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Literal
+
+import numpy as np
+import numpy.typing as npt
+from scipy.signal import sosfilt
+
+from planner._typing import FloatArray
+from planner.analysis.bands import BandAnalyzer
+from planner.analysis.channels import fold_down_stereo
+from planner.analysis.loudness import k_weighting_sos
+from planner.analysis.sii import N_BANDS
+from planner.errors import InputError
+from planner.model import AudioInfo
+from planner.units import ANALYSIS_FRAME_S
+
+if TYPE_CHECKING:
+    from planner.io.audio import ProgrammeBlock
+
+#: Index of the K-weighted power in a feature vector.
+K = N_BANDS
+#: Index of the unweighted power.
+FLAT = N_BANDS + 1
+#: Length of a feature vector.
+N_FEATURES = N_BANDS + 2
+#: BS.1770-5 channel weights G (Table 3) for L R C LFE Ls Rs; LFE (index 3) is excluded.
+SURROUND_WEIGHTS = np.array([1.0, 1.0, 1.0, 0.0, 1.41, 1.41])
+#: 5.1 channel index of the centre.
+CENTRE = 2
+
+
+class FrameFeatures:
+    """Band, K-weighted and flat power per analysis frame of one mono signal, streaming.
+
+    Parameters
+    ----------
+    sample_rate_hz : int
+        Sample rate, Hz.
+    frame_s : float, keyword-only
+        Hop, seconds (default 10 ms).
+    """
+
+    def __init__(self, sample_rate_hz: int, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
+        self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
+        self._sos = k_weighting_sos(sample_rate_hz)
+        self._zi = np.zeros((self._sos.shape[0], 2))
+        self._hop = frame_s * sample_rate_hz
+        self._n_seen = 0
+        self._next_frame = 0  # next K/flat frame to complete
+        self._carry = np.zeros((0, 2))  # squared (K, flat) samples of the unfinished frame
+        self._queue: list[FloatArray] = []  # K/flat frames waiting for their band frames
+
+    def _boundary(self, j: npt.NDArray[np.int64]) -> npt.NDArray[np.int64]:
+        return np.floor(j * self._hop + 0.5).astype(np.int64)
+
+    def _frames_from(self, squares: FloatArray, stop_frame: int) -> FloatArray:
+        """Mean squares of frames ``next_frame..stop_frame-1`` from ``carry + squares``."""
+        data = np.concatenate([self._carry, squares])
+        start = int(self._boundary(np.array([self._next_frame]))[0])
+        j = np.arange(self._next_frame, stop_frame + 1)
+        edges = np.minimum(self._boundary(j), start + data.shape[0]) - start
+        if stop_frame > self._next_frame:
+            counts = np.diff(edges)
+            used = data[: edges[-1]]
+            sums = np.zeros((counts.size, 2))
+            full = counts > 0  # only the partial last frame at the end of a signal can be empty
+            if used.shape[0]:
+                sums[full] = np.add.reduceat(used, edges[:-1][full], axis=0)
+            out = sums / np.maximum(counts, 1)[:, None]
+        else:
+            out = np.zeros((0, 2))
+        self._carry = data[edges[-1] :]
+        self._next_frame = stop_frame
+        return out
+
+    def _combine(self, bands: FloatArray) -> FloatArray:
+        n = bands.shape[0]
+        kf = np.vstack(self._queue) if self._queue else np.zeros((0, 2))
+        out = np.empty((n, N_FEATURES))
+        out[:, :N_BANDS] = bands
+        out[:, K:] = kf[:n]
+        self._queue = [kf[n:]] if kf.shape[0] > n else []
+        return out
+
+    def _complete_frames(self) -> int:
+        """Number of frames whose last sample has arrived: largest m with boundary(m) <= n_seen."""
+        m = int((self._n_seen + 0.5) // self._hop)
+        while int(self._boundary(np.array([m + 1]))[0]) <= self._n_seen:
+            m += 1
+        while m > 0 and int(self._boundary(np.array([m]))[0]) > self._n_seen:
+            m -= 1
+        return m
+
+    def process(self, x: npt.ArrayLike) -> FloatArray:
+        """Feature vectors of the frames completed by this input, shape ``(n_frames, N_FEATURES)``."""
+        sig = np.asarray(x, dtype=np.float64)
+        kw, self._zi = sosfilt(self._sos, sig, zi=self._zi)
+        self._n_seen += sig.size
+        squares = np.stack([kw * kw, sig * sig], axis=1)
+        self._queue.append(self._frames_from(squares, max(self._complete_frames(), self._next_frame)))
+        return self._combine(self._bands.process(sig.astype(np.float32)))
+
+    def flush(self) -> FloatArray:
+        """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``."""
+        total = int(np.ceil(self._n_seen / self._hop - 1e-9))
+        self._queue.append(self._frames_from(np.zeros((0, 2)), max(total, self._next_frame)))
+        return self._combine(self._bands.flush())
+
+
+def _listener_sum(powers: list[FloatArray], weights: npt.ArrayLike) -> FloatArray:
+    return sum((w * p for w, p in zip(np.asarray(weights), powers) if w != 0.0), np.zeros_like(powers[0]))
+
+
+class ProgrammeFeatures:
+    """The per-frame power views of a programme that the cue scores need.
+
+    Stems (``kind="stems"``): ``speech`` and ``background`` (listener sums of the dialogue and
+    background stems) and, for 5.1, ``speech_fold`` / ``background_fold`` for the BS.775
+    stereo fold-down. Mix: ``total`` (listener sum of the mix); stereo also ``mixed`` = mid
+    ``(L+R)/2`` and ``clean`` = side ``(L-R)/2``; 5.1 ``mixed`` = centre, ``clean`` = the
+    others weighted as in the listener sum, plus ``fold_total``, ``fold_mixed``,
+    ``fold_clean`` for the fold-down's mid and side.
+    """
+
+    def __init__(self, info: AudioInfo, kind: Literal["mix", "stems"], *, frame_s: float = ANALYSIS_FRAME_S) -> None:
+        self.layout = info.layout
+        self.kind = kind
+        n_signals = {"mono": 1, "stereo": 2, "5.1": 7}[info.layout] * (2 if kind == "stems" else 1)
+        self._signals = [FrameFeatures(info.sample_rate_hz, frame_s=frame_s) for _ in range(n_signals)]
+
+    def _signals_of(self, x: FloatArray) -> list[FloatArray]:
+        """The mono signals analysed for one multichannel array ``(n, ch)``."""
+        if self.layout == "mono":
+            return [x[:, 0]]
+        if self.layout == "stereo":
+            if self.kind == "stems":
+                return [x[:, 0], x[:, 1]]
+            return [0.5 * (x[:, 0] + x[:, 1]), 0.5 * (x[:, 0] - x[:, 1])]
+        fold = fold_down_stereo(x).astype(np.float64)
+        if self.kind == "stems":
+            return [x[:, 0], x[:, 1], x[:, 2], x[:, 4], x[:, 5], fold[:, 0], fold[:, 1]]
+        mid, side = 0.5 * (fold[:, 0] + fold[:, 1]), 0.5 * (fold[:, 0] - fold[:, 1])
+        return [x[:, 0], x[:, 1], x[:, 2], x[:, 4], x[:, 5], mid, side]
+
+    def _views(self, p: list[FloatArray]) -> dict[str, FloatArray]:
+        """Named listener and spatial views from per-signal features, in :meth:`_signals_of` order."""
+        if self.kind == "stems":
+            half = len(p) // 2
+            out = {}
+            for name, q in (("speech", p[:half]), ("background", p[half:])):
+                if self.layout == "5.1":
+                    out[name] = _listener_sum(q[:5], SURROUND_WEIGHTS[[0, 1, 2, 4, 5]])
+                    out[f"{name}_fold"] = q[5] + q[6]
+                else:
+                    out[name] = _listener_sum(q, np.ones(len(q)))
+            return out
+        if self.layout == "mono":
+            return {"total": p[0]}
+        if self.layout == "stereo":
+            # |L|^2 + |R|^2 = 2 |M|^2 + 2 |S|^2 per bin, so the listener sum is exact.
+            return {"total": 2.0 * (p[0] + p[1]), "mixed": p[0], "clean": p[1]}
+        weights = SURROUND_WEIGHTS[[0, 1, 2, 4, 5]]
+        others = _listener_sum([p[0], p[1], p[3], p[4]], weights[[0, 1, 3, 4]])
+        return {
+            "total": others + p[2],
+            "mixed": p[2],
+            "clean": others,
+            "fold_total": 2.0 * (p[5] + p[6]),
+            "fold_mixed": p[5],
+            "fold_clean": p[6],
+        }
+
+    def _run(self, arrays: list[FloatArray] | None) -> dict[str, FloatArray]:
+        if arrays is None:
+            parts = [s.flush() for s in self._signals]
+        else:
+            parts = [s.process(a) for s, a in zip(self._signals, arrays)]
+        return self._views(parts)
+
+    def process(self, block: ProgrammeBlock) -> dict[str, FloatArray]:
+        """Views of the frames completed by this block, each ``(n_frames, N_FEATURES)``."""
+        if self.kind == "stems":
+            if block.dialogue is None or block.background is None:
+                raise InputError(
+                    "stems scoring needs dialogue and background in every block; open the programme with both stems"
+                )
+            dialogue, background = block.dialogue.astype(np.float64), block.background.astype(np.float64)
+            arrays = self._signals_of(dialogue) + self._signals_of(background)
+        else:
+            arrays = self._signals_of(block.mix.astype(np.float64))
+        return self._run(arrays)
+
+    def flush(self) -> dict[str, FloatArray]:
+        """Views of the last frames after the final block."""
+        return self._run(None)

@@ -1,0 +1,358 @@
+"""Per-cue masking scores in one streaming pass over the programme (pass 2).
+
+For each cue, over the speech frames (``activity.is_speech``) of its aligned span:
+
+- ``speech_db`` / ``background_db``: K-weighted levels (ITU-R BS.1770-5, channels summed with
+  the Table 3 weights, LFE left out), ungated, LUFS; ``sbld_lu`` their difference;
+- ``sii``: ANSI S3.5-1997 SII of the cue's average speech and background spectra at the
+  listening level, for the analysis hearing profile; ``sii_by_profile`` the same for
+  ``normal`` and every age preset (and, for 5.1, each ``name@stereo-fold-down``: the ITU-R
+  BS.775 fold-down heard on stereo loudspeakers);
+- ``sii_short``: short-time SII after Rhebergen and Versfeld (2005), the mean over speech
+  frames of the SII of the cue's speech spectrum against each frame's background;
+- ``stoi``: STOI (Taal et al. 2011, the ``pystoi`` package) of the mix against the clean
+  dialogue over the span, for stems only.
+
+Stems (``kind="stems"``) give the speech and the background directly. For the mix alone
+(``kind="mix"``) they are estimated by :mod:`planner.analysis.estimate`. What the listener
+hears is the loudspeaker sum (:mod:`planner.analysis.features`); spectra and levels are
+dB SPL at the listening level (:mod:`planner.analysis.scoring`).
+
+Memory: the band analysers' overlap, the noise tracker's state, and per open cue its
+accumulators (sums over frames; the frames kept for the short-time SII, at most
+:data:`~planner.analysis.cuepass.ESII_MAX_FRAMES`; the samples STOI needs, at most
+:data:`~planner.analysis.cuepass.STOI_MAX_S`). A cue stays
+open from :data:`~planner.analysis.estimate.CONTEXT_S` before its span to as long after.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterable, Sequence
+from typing import TYPE_CHECKING, Literal
+
+import numpy as np
+from pystoi import stoi as pystoi_stoi
+
+from planner._typing import FloatArray
+from planner.analysis.channels import detection_signal
+from planner.analysis.cuepass import (
+    CLIP_RUN,
+    STOI_MAX_S,
+    STOI_MIN_S,
+    CueAccumulator,
+    clipped_runs,
+    frame_of_sample,
+    frame_start,
+    listener_mono,
+)
+from planner.analysis.estimate import CONTEXT_S, Spatial, estimate_mix
+from planner.analysis.features import FLAT, N_FEATURES, ProgrammeFeatures
+from planner.analysis.minstats import MinimumStatistics
+from planner.analysis.scoring import (
+    FOLD_DOWN_SUFFIX,
+    TrailingMean,
+    analysis_thresholds,
+    esii_frames,
+    levels,
+    short_time_sii,
+    sii_by_profile,
+    spl_offset_db,
+)
+from planner.analysis.sii import N_BANDS
+from planner.analysis.verdicts import verdict
+from planner.errors import InputError
+from planner.model import AudioInfo, CueScore, CueTiming, SpeechActivity
+from planner.progress import Progress, no_progress
+from planner.settings import AnalysisSettings
+from planner.units import nearest_int
+
+if TYPE_CHECKING:
+    from planner.io.audio import ProgrammeBlock
+
+__all__ = ["score_cues", "verdict"]
+
+
+class _ScoringPass:
+    """State of the streaming pass; :meth:`feed` every block, then :meth:`finish`."""
+
+    def __init__(
+        self,
+        info: AudioInfo,
+        kind: Literal["mix", "stems"],
+        timings: Sequence[CueTiming],
+        activity: SpeechActivity,
+        settings: AnalysisSettings,
+    ) -> None:
+        self.info, self.kind, self.activity = info, kind, activity
+        self.frame_s = activity.frame_s
+        self.hop = self.frame_s * info.sample_rate_hz
+        self.features = ProgrammeFeatures(info, kind, frame_s=self.frame_s)
+        self.offset_db = spl_offset_db(settings.listening_level_db_spl)
+        self.hearing_name, self.thresholds = analysis_thresholds(settings)
+        self.windows = TrailingMean(esii_frames(self.frame_s))
+        self.spatial = kind == "mix" and info.layout != "mono"
+        n_tracked = N_FEATURES * (2 if info.layout == "5.1" else 1)
+        self.tracker = MinimumStatistics(n_tracked, frame_s=self.frame_s) if kind == "mix" else None
+        self.pending = sorted(timings, key=lambda t: (t.aligned_start_s, t.index))
+        self.context_frames = nearest_int(CONTEXT_S / self.frame_s)
+        self.open: list[CueAccumulator] = []
+        self.scores: dict[int, CueScore] = {}
+        self.frames_done = 0
+        self.samples_done = 0
+        self.clip_carry = np.zeros(CLIP_RUN - 1, dtype=bool)
+
+    # ----------------------------------------------------------------- streaming
+
+    def _speech_at(self, frames: np.ndarray) -> np.ndarray:
+        mask = self.activity.is_speech
+        inside = (frames >= 0) & (frames < mask.shape[0])
+        out = np.zeros(frames.shape, dtype=bool)
+        out[inside] = mask[frames[inside]]
+        return out
+
+    def _open(self, until_sample: int | None) -> None:
+        """Open the pending cues whose context starts before ``until_sample`` (all if None)."""
+        while self.pending:
+            first = nearest_int(self.pending[0].aligned_start_s / self.frame_s) - self.context_frames
+            if until_sample is not None and frame_start(max(first, 0), self.hop) >= until_sample:
+                return
+            timing = self.pending.pop(0)
+            self.open.append(
+                CueAccumulator(
+                    timing, frame_s=self.frame_s, hop=self.hop, context_frames=self.context_frames, names=self._names()
+                )
+            )
+
+    def feed(self, block: ProgrammeBlock) -> None:
+        """Add one block (contiguous with the previous one)."""
+        if block.start_frame != self.samples_done:
+            raise InputError(
+                f"audio blocks must be contiguous from sample 0; got a block at {block.start_frame}, "
+                f"expected {self.samples_done}; pass the blocks of iter_programme from the start"
+            )
+        end = self.samples_done + block.n_frames
+        self._open(end)
+        self._samples(block)
+        self._frames(self.features.process(block))
+        self.samples_done = end
+        self._close(final=False)
+
+    def finish(self) -> tuple[CueScore, ...]:
+        """Scores of every cue, in index order, after the last block."""
+        self._frames(self.features.flush())
+        self._open(None)
+        self._close(final=True)
+        return tuple(self.scores[i] for i in sorted(self.scores))
+
+    def _names(self) -> list[str]:
+        if self.kind == "stems":
+            return ["speech", "background"] + (["speech_fold", "background_fold"] if self.info.layout == "5.1" else [])
+        names = ["total", "tracked"]
+        if self.spatial:
+            names += ["mixed", "clean"]
+        if self.info.layout == "5.1":
+            names += ["fold_total", "fold_tracked", "fold_mixed", "fold_clean"]
+        return names
+
+    def _frames(self, views: dict[str, FloatArray]) -> None:
+        n = next(iter(views.values())).shape[0]
+        if n == 0:
+            return
+        if self.tracker is not None:
+            both = views["total"] if self.info.layout != "5.1" else np.hstack([views["total"], views["fold_total"]])
+            tracked = self.tracker.process(both)
+            views["tracked"] = tracked[:, :N_FEATURES]
+            if self.info.layout == "5.1":
+                views["fold_tracked"] = tracked[:, N_FEATURES:]
+        proxy_name = "background" if self.kind == "stems" else ("clean" if self.spatial else None)
+        proxy = self.windows.process(views[proxy_name][:, :N_BANDS]) if proxy_name else None
+        g0 = self.frames_done
+        j = np.arange(g0, g0 + n)
+        is_speech = self._speech_at(j)
+        probability = np.zeros(n, dtype=np.float32)
+        inside = j < self.activity.probability.shape[0]
+        probability[inside] = self.activity.probability[j[inside]]
+        for cue in self.open:
+            cue.add_frames(g0, views, is_speech, probability, proxy)
+        self.frames_done += n
+
+    def _samples(self, block: ProgrammeBlock) -> None:
+        b0, n = self.samples_done, block.n_frames
+        checked = [block.mix] if self.kind == "mix" else [block.dialogue, block.background]
+        runs, self.clip_carry = clipped_runs(checked, self.clip_carry)
+        speech = self._speech_at(frame_of_sample(np.arange(b0, b0 + n), self.hop))
+        detection = detection_signal(block.mix, self.info.layout) if self.kind == "mix" else None
+        mono_mix = mono_clean = None
+        if block.dialogue is not None and any(c.keep_audio and c.s0 < b0 + n and c.s1 > b0 for c in self.open):
+            mono_mix = listener_mono(block.mix, self.info.layout)
+            mono_clean = listener_mono(block.dialogue, self.info.layout)
+        for cue in self.open:
+            cue.add_samples(b0, runs, speech, detection, mono_mix, mono_clean)
+
+    def _close(self, *, final: bool) -> None:
+        still = []
+        for cue in self.open:
+            if final or (cue.e1 <= self.frames_done and cue.s1 <= self.samples_done):
+                self.scores[cue.timing.index] = self._score(cue)
+            else:
+                still.append(cue)
+        self.open = still
+
+    # ----------------------------------------------------------------- scores
+
+    def _no_score(self, cue: CueAccumulator, reason: str) -> CueScore:
+        return CueScore(
+            index=cue.timing.index, method="none", speech_s=cue.n_speech * self.frame_s, speech_db=None,
+            background_db=None, sbld_lu=None, sii=None, sii_short=None, stoi=None, confidence=0.0,
+            verdict="no-score", reason=reason,
+        )  # fmt: skip
+
+    def _score(self, cue: CueAccumulator) -> CueScore:
+        t = cue.timing
+        if cue.n_speech == 0:
+            return self._no_score(
+                cue, f"no speech detected in the cue's aligned span ({t.aligned_start_s:.2f}-{t.aligned_end_s:.2f} s)"
+            )
+        mean = cue.means()
+        notes: list[str] = []
+        if self.kind == "stems":
+            speech, background = mean["speech"], mean["background"]
+            fold = (mean["speech_fold"], mean["background_fold"]) if self.info.layout == "5.1" else None
+            rows = np.vstack(cue.esii_rows) if cue.esii_rows else np.zeros((0, N_BANDS))
+            confidence = 1.0
+            stoi_value, stoi_note = self._stoi(cue)
+            if stoi_note:
+                notes.append(stoi_note)
+        else:
+            speech, background, fold, rows, confidence, est_notes = self._estimate(cue, mean)
+            notes.extend(est_notes)
+            stoi_value = None
+            notes.append("no STOI: it needs the clean dialogue (stems)")
+        if not speech[FLAT] > 0.0:
+            what = "the dialogue stem" if self.kind == "stems" else "the programme"
+            return self._no_score(cue, f"{what} is silent over the cue's speech frames")
+        lv = levels(speech, background, self.offset_db)
+        by_profile = sii_by_profile(lv.speech_spectrum_db, lv.background_spectrum_db, self.thresholds)
+        threshold = self.thresholds[self.hearing_name]
+        sii_value = by_profile[self.hearing_name]
+        sii_short = short_time_sii(lv.speech_spectrum_db, rows, self.offset_db, threshold)
+        result = verdict(sii_value, lv.sbld_lu)
+        if fold is not None:
+            fl = levels(fold[0], fold[1], self.offset_db)
+            folded = sii_by_profile(
+                fl.speech_spectrum_db, fl.background_spectrum_db, self.thresholds, suffix=FOLD_DOWN_SUFFIX
+            )
+            by_profile.update(folded)
+            fold_verdict = verdict(folded[self.hearing_name + FOLD_DOWN_SUFFIX], fl.sbld_lu)
+            if fold_verdict != result:
+                notes.append(f"on the stereo fold-down: {fold_verdict}")
+        if lv.background_db is None:
+            notes.append("the background is silent under this cue")
+        if cue.clipped:
+            notes.append("clipped audio in this cue (full-scale runs of 3+ samples): scores may be unreliable")
+        return CueScore(
+            index=t.index,
+            method="stems" if self.kind == "stems" else "mix",
+            speech_s=cue.n_speech * self.frame_s,
+            speech_db=lv.speech_db,
+            background_db=lv.background_db,
+            sbld_lu=lv.sbld_lu,
+            sii=sii_value,
+            sii_short=sii_short,
+            stoi=stoi_value,
+            confidence=confidence,
+            verdict=result,
+            reason="; ".join(notes),
+            speech_spectrum_db=tuple(float(v) for v in lv.speech_spectrum_db),
+            background_spectrum_db=tuple(float(v) for v in lv.background_spectrum_db),
+            sii_by_profile=by_profile,
+        )
+
+    def _estimate(
+        self, cue: CueAccumulator, mean: dict[str, FloatArray]
+    ) -> tuple[FloatArray, FloatArray, tuple[FloatArray, FloatArray] | None, FloatArray, float, list[str]]:
+        fraction = cue.wada.speech_fraction()
+        layout = self.info.layout
+        # Listener speech power (flat) implied by the WADA-SNR of the detection signal: speech
+        # is equal in L and R (heard twice the mid's power), or alone in C (heard once).
+        if fraction is None:
+            wada_speech = None
+        elif layout == "stereo":
+            wada_speech = 2.0 * fraction * mean["mixed"][FLAT]
+        elif layout == "5.1":
+            wada_speech = fraction * mean["mixed"][FLAT]
+        else:
+            wada_speech = fraction * mean["total"][FLAT]
+        structure: Spatial = "none" if not self.spatial else ("mid-side" if layout == "stereo" else "centre-others")
+        est = estimate_mix(cue.evidence("", structure, wada_speech))
+        fold = None
+        if layout == "5.1":
+            fold_est = estimate_mix(cue.evidence("fold_", "mid-side", wada_speech))
+            fold = (fold_est.speech, fold_est.background)
+        if self.spatial and cue.esii_rows:
+            # Background per frame: the estimate, following the speech-free part's fluctuation.
+            proxy = np.vstack(cue.esii_rows)
+            level = np.maximum(proxy.mean(axis=0), 1e-20)
+            rows = est.background[None, :N_BANDS] * proxy / level
+        else:
+            rows = est.background[None, :N_BANDS]
+        return est.speech, est.background, fold, rows, est.confidence, list(est.notes)
+
+    def _stoi(self, cue: CueAccumulator) -> tuple[float | None, str]:
+        if not cue.keep_audio:
+            return None, f"no STOI: the span must be {STOI_MIN_S:g}-{STOI_MAX_S:g} s long"
+        clean, degraded = np.concatenate(cue.clean), np.concatenate(cue.degraded)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            value = float(pystoi_stoi(clean, degraded, self.info.sample_rate_hz))
+        if any(issubclass(w.category, RuntimeWarning) for w in caught):
+            return None, "no STOI: too little dialogue above silence in the span"
+        return value, ""
+
+
+def score_cues(
+    blocks: Iterable[ProgrammeBlock],
+    *,
+    info: AudioInfo,
+    kind: Literal["mix", "stems"],
+    timings: Sequence[CueTiming],
+    activity: SpeechActivity,
+    settings: AnalysisSettings,
+    progress: Progress | None = None,
+) -> tuple[CueScore, ...]:
+    """Score every cue for masking in one pass over the programme's blocks.
+
+    Parameters
+    ----------
+    blocks : iterable of ProgrammeBlock
+        The programme from sample 0, contiguous (``planner.io.audio.iter_programme``).
+    info : AudioInfo
+        The programme's format (rate, layout).
+    kind : {"mix", "stems"}
+        ``stems``: score from the dialogue and background stems; ``mix``: estimate them.
+    timings : sequence of CueTiming
+        Aligned cue spans (``aligned_start_s``/``aligned_end_s``, seconds).
+    activity : SpeechActivity
+        Speech frames of the programme (10 ms).
+    settings : AnalysisSettings
+        Listening level (dB SPL at -23 LUFS) and hearing profile.
+    progress : Progress, optional
+        Called as ``progress("scoring", seconds done, seconds total)``.
+
+    Returns
+    -------
+    tuple of CueScore
+        One per timing, in ``index`` order.
+
+    Raises
+    ------
+    InputError
+        If the blocks are not contiguous from sample 0, or stems blocks lack a stem.
+    """
+    report = progress or no_progress
+    scoring = _ScoringPass(info, kind, timings, activity, settings)
+    for block in blocks:
+        scoring.feed(block)
+        report("scoring", scoring.samples_done / info.sample_rate_hz, info.duration_s)
+    return scoring.finish()

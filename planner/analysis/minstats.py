@@ -1,0 +1,180 @@
+"""Noise power tracked through speech: minimum statistics with optimal smoothing (Martin 2001).
+
+The noisy power of each feature (a band power, or a broadband weighted power) is smoothed
+recursively with a time- and feature-varying factor chosen to minimise the error of the
+smoothed power as a noise estimate (Martin 2001, Eq. 7, with the correction factor alpha_c of
+Eq. 11 and a floor). The minimum of the smoothed power over a window of ``D`` frames, searched
+in ``U`` sub-windows of ``V`` frames, lies below the mean noise power; it is scaled up by the
+bias factor ``B_min(D, Q_eq)`` derived from the estimated variance of the smoothed power
+(Eqs. 16-18, the equivalent degrees of freedom ``Q_eq``; ``M(D)`` from Table III) and by the
+extra factor ``B_c`` for the variance of that variance estimate (Eq. 22). Between sub-window
+ends, a rising noise floor is followed by the sub-window minimum if it stays within the
+"noise slope" limit (Section IV).
+
+Frames are the tool's 10 ms analysis frames. Defaults: ``D`` spans 1.52 s (8 sub-windows of
+0.19 s), close to the 1.5 s of the paper's examples; ``alpha_max`` 0.96, ``alpha_min`` 0.3,
+``beta_max`` 0.8, ``a_v`` 2.12 and the noise-slope steps are the paper's values.
+
+References
+----------
+Martin, R. (2001), "Noise power spectral density estimation based on optimal smoothing and
+minimum statistics", IEEE Trans. Speech Audio Process. 9(5), 504-512.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import numpy.typing as npt
+
+from planner._typing import FloatArray
+from planner.errors import SettingsError
+from planner.units import ANALYSIS_FRAME_S
+
+#: Table III of Martin (2001): window length D (frames) and the factor M(D) of Eq. 17.
+M_TABLE_D = np.array([1, 2, 5, 8, 10, 15, 20, 30, 40, 60, 80, 120, 140, 160], dtype=np.float64)
+M_TABLE_M = np.array(
+    [0.0, 0.26, 0.48, 0.58, 0.61, 0.668, 0.705, 0.762, 0.8, 0.841, 0.865, 0.89, 0.9, 0.91]
+)
+
+ALPHA_MAX = 0.96  # upper bound of the smoothing factor (Martin 2001, Section III)
+ALPHA_MIN = 0.3  # lower bound, so the smoothed power can fall back to the noise within ~64 ms
+ALPHA_C_SMOOTH = 0.7  # smoothing of the correction factor alpha_c (Eq. 11)
+BETA_MAX = 0.8  # cap of the smoothing factor of the first and second moments (Section IV)
+A_V = 2.12  # B_c = 1 + a_v sqrt(mean 1/Q_eq) (Eq. 22)
+# Noise-slope limits by mean 1/Q_eq (Section IV): a steadier estimate may follow a faster rise.
+_SLOPE_STEPS = ((0.03, 8.0), (0.05, 4.0), (0.06, 2.0))
+_SLOPE_DEFAULT = 1.2
+# Power floor (re full scale) so digital silence does not divide by zero: -200 dB.
+_POWER_FLOOR = 1e-20
+
+
+def m_of_d(d: float) -> float:
+    """``M(D)`` of Martin's Table III, linearly interpolated between the tabulated ``D``."""
+    return float(np.interp(d, M_TABLE_D, M_TABLE_M))
+
+
+class MinimumStatistics:
+    """Streaming noise-power tracker over frames, vectorised over independent features.
+
+    Parameters
+    ----------
+    n_features : int
+        Number of power values per frame (e.g. 18 band powers plus broadband ones).
+    frame_s : float, keyword-only
+        Frame hop, seconds (default 10 ms).
+    window_s : float, keyword-only
+        Length of the minimum search, seconds (default 1.52 s).
+    n_subwindows : int, keyword-only
+        Sub-windows ``U`` the search is split into (default 8).
+    """
+
+    def __init__(
+        self,
+        n_features: int,
+        *,
+        frame_s: float = ANALYSIS_FRAME_S,
+        window_s: float = 1.52,
+        n_subwindows: int = 8,
+    ) -> None:
+        if n_features < 1:
+            raise SettingsError(f"n_features={n_features} must be at least 1; pass the number of powers per frame")
+        if n_subwindows < 2 or window_s <= 0 or frame_s <= 0:
+            raise SettingsError("window_s and frame_s must be positive and n_subwindows at least 2; pass e.g. 1.52, 0.01, 8")
+        self.n_features = n_features
+        self.sub_len = max(2, int(round(window_s / frame_s / n_subwindows)))  # V
+        self.n_sub = n_subwindows  # U
+        self.window_len = self.sub_len * self.n_sub  # D = U V
+        self._m_d = m_of_d(self.window_len)
+        self._m_v = m_of_d(self.sub_len)
+        self._started = False
+
+    def _start(self, y: FloatArray) -> None:
+        n = self.n_features
+        self._p = y.copy()  # smoothed power P (Eq. 4)
+        self._noise = y.copy()  # sigma_N^2
+        self._p_bar = y.copy()  # first moment of P
+        self._p2_bar = y * y  # second moment of P
+        self._alpha_c = 1.0
+        self._actmin = np.full(n, np.inf)
+        self._actmin_sub = np.full(n, np.inf)
+        self._pmin_u = y.copy()
+        self._buffer = np.full((self.n_sub, n), np.inf)  # minima of the last U sub-windows
+        self._buffer_i = 0
+        self._sub_count = 1
+        self._local_min = np.zeros(n, dtype=bool)
+        self._started = True
+
+    def _step(self, y: FloatArray) -> FloatArray:
+        # Correction factor for the smoothing (Eq. 11), from the whole frame's power.
+        ratio = self._p.sum() / y.sum()
+        alpha_c_tilde = 1.0 / (1.0 + (ratio - 1.0) ** 2)
+        self._alpha_c = ALPHA_C_SMOOTH * self._alpha_c + (1.0 - ALPHA_C_SMOOTH) * max(alpha_c_tilde, 0.7)
+        # Optimal smoothing factor (Eq. 7 with alpha_c), floored at ALPHA_MIN.
+        alpha = ALPHA_MAX * self._alpha_c / (1.0 + (self._p / self._noise - 1.0) ** 2)
+        alpha = np.maximum(alpha, ALPHA_MIN)
+        self._p = alpha * self._p + (1.0 - alpha) * y
+        # Variance of P from first and second moments (Eq. 23), and 1/Q_eq (Eq. 16).
+        beta = np.minimum(alpha * alpha, BETA_MAX)
+        self._p_bar = beta * self._p_bar + (1.0 - beta) * self._p
+        self._p2_bar = beta * self._p2_bar + (1.0 - beta) * self._p * self._p
+        var_p = self._p2_bar - self._p_bar**2
+        q_inv = np.clip(var_p / (2.0 * self._noise**2), 0.0, 0.5)
+        q_inv_mean = float(q_inv.mean())
+        b_c = 1.0 + A_V * np.sqrt(q_inv_mean)  # Eq. 22
+        with np.errstate(divide="ignore"):
+            q = 1.0 / q_inv
+        # Bias of the minimum over D and over V frames (Eqs. 17-18), infinite Q_eq -> no bias.
+        b_min = 1.0 + (self.window_len - 1) * 2.0 / ((q - 2.0 * self._m_d) / (1.0 - self._m_d))
+        b_min_sub = 1.0 + (self.sub_len - 1) * 2.0 / ((q - 2.0 * self._m_v) / (1.0 - self._m_v))
+        candidate = self._p * b_min * b_c
+        lower = candidate < self._actmin
+        self._actmin = np.where(lower, candidate, self._actmin)
+        self._actmin_sub = np.where(lower, self._p * b_min_sub * b_c, self._actmin_sub)
+        if self._sub_count == self.sub_len:
+            # End of a sub-window: store its minimum, take the minimum over the last U.
+            self._local_min[lower] = False
+            self._buffer[self._buffer_i] = self._actmin
+            self._buffer_i = (self._buffer_i + 1) % self.n_sub
+            self._pmin_u = self._buffer.min(axis=0)
+            slope = next((s for lim, s in _SLOPE_STEPS if q_inv_mean < lim), _SLOPE_DEFAULT)
+            rising = self._local_min & (self._actmin_sub < slope * self._pmin_u) & (self._actmin_sub > self._pmin_u)
+            if rising.any():
+                self._pmin_u = np.where(rising, self._actmin_sub, self._pmin_u)
+                self._buffer[:, rising] = self._pmin_u[rising]
+            self._local_min[:] = False
+            self._sub_count = 1
+            self._actmin[:] = np.inf
+        else:
+            if self._sub_count > 1:
+                self._local_min[lower] = True
+            self._sub_count += 1
+        self._noise = np.minimum(self._actmin_sub, self._pmin_u)
+        self._pmin_u = self._noise
+        return self._noise
+
+    def process(self, power: npt.ArrayLike) -> FloatArray:
+        """Noise power estimate for each frame.
+
+        Parameters
+        ----------
+        power : array_like, shape (n_frames, n_features)
+            Noisy power per frame (any linear power unit, non-negative).
+
+        Returns
+        -------
+        ndarray, shape (n_frames, n_features)
+            Estimated noise power in the same unit, float64.
+        """
+        y_all = np.maximum(np.asarray(power, dtype=np.float64), _POWER_FLOOR)
+        if y_all.ndim != 2 or y_all.shape[1] != self.n_features:
+            raise SettingsError(
+                f"power has shape {y_all.shape}; pass (n_frames, {self.n_features}) powers per frame"
+            )
+        out = np.empty_like(y_all)
+        for i, y in enumerate(y_all):
+            if not self._started:
+                self._start(y)
+                out[i] = self._noise
+                continue
+            out[i] = self._step(y)
+        return out
