@@ -326,6 +326,15 @@ def _print_written(written: dict[str, Path]) -> None:
         stdout.print(f"  {name:<10} {path}", highlight=False)
 
 
+def _mount_triage() -> None:
+    from planner.batch.cli import triage_app
+
+    app.add_typer(triage_app, name="triage", help="Triage a whole archive into a resumable catalogue.")
+
+
+_mount_triage()
+
+
 def main() -> None:
     """Console-script entry point."""
     app()
