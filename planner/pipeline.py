@@ -11,6 +11,7 @@ Functions here read files; they never print. Writing the analysis folder is
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import json
 import os
@@ -21,14 +22,15 @@ from pathlib import Path
 from typing import Any
 
 from planner.analysis.align import align, time_cues
-from planner.analysis.channels import DETECTION_SOURCE, detection_signal
+from planner.analysis.channels import detection_signal
 from planner.analysis.checks import HouseStyle, load_style
 from planner.analysis.loudness import LoudnessMeter
 from planner.analysis.masking import score_cues
 from planner.analysis.vad import make_detector
 from planner.io.audio import Programme, iter_programme, open_programme
+from planner.io.parallel import feature_worker, speech_source, speech_worker, use_workers
 from planner.errors import PlanFileError
-from planner.io.exports import load_plan, write_cues_csv, write_exports
+from planner.io.exports import load_plan, plan_json, write_cues_csv, write_exports
 from planner.io.files import atomic_write_text, refuse_inputs, sha256_file
 from planner.io.subtitles import read_subtitles, write_subtitles
 from planner.model import (
@@ -146,19 +148,31 @@ def open_inputs(inputs: Inputs) -> tuple[Programme, SubtitleTrack]:
 
 
 def measure(programme: Programme, settings: AnalysisSettings, *, progress: Progress | None = None) -> tuple[SpeechActivity, LoudnessSummary]:
-    """Pass 1: programme loudness and the speech track, from one read of the audio."""
+    """Pass 1: programme loudness and the speech track.
+
+    With two or more cores and a programme of at least a minute, the speech detector reads
+    the audio in a second process while this one meters the loudness
+    (:mod:`planner.io.parallel`); otherwise one read feeds both. The results are the same.
+    """
     progress = progress or no_progress
     info = programme.info
-    stems = programme.kind == "stems"
-    source = "dialogue stem" if stems else DETECTION_SOURCE[info.layout]
-    detector = make_detector(settings.vad, info.sample_rate_hz, aggressiveness=settings.vad_aggressiveness, source=source)
     meter = LoudnessMeter(info.sample_rate_hz, info.layout)
-    for block in iter_programme(programme):
-        meter.feed(block.mix)
-        speech = block.dialogue if stems and block.dialogue is not None else block.mix
-        detector.feed(detection_signal(speech, info.layout))
-        progress("speech detection", (block.start_frame + block.mix.shape[0]) / info.sample_rate_hz, info.duration_s)
-    activity = detector.finish()
+    with contextlib.ExitStack() as stack:
+        detector = None
+        if use_workers(programme):
+            result = stack.enter_context(speech_worker(programme, settings))
+        else:
+            detector = make_detector(
+                settings.vad, info.sample_rate_hz, aggressiveness=settings.vad_aggressiveness,
+                source=speech_source(programme),
+            )  # fmt: skip
+        for block in iter_programme(programme):
+            meter.feed(block.mix)
+            if detector is not None:
+                speech = block.dialogue if block.dialogue is not None else block.mix
+                detector.feed(detection_signal(speech, info.layout))
+            progress("speech detection", (block.start_frame + block.n_frames) / info.sample_rate_hz, info.duration_s)
+        activity = result() if detector is None else detector.finish()
     return activity, meter.summary(speech_mask=activity.is_speech, frame_s=activity.frame_s)
 
 
@@ -205,15 +219,19 @@ def analyse(
     style = load_style(style_path)  # a bad profile fails before the long work
     activity, loudness = measure(programme, settings, progress=progress)
     alignment, timings, uncovered = align_cues(track.cues, activity, programme.info, settings, style)
-    scores = score_cues(
-        iter_programme(programme),
-        info=programme.info,
-        kind=programme.kind,
-        timings=timings,
-        activity=activity,
-        settings=settings,
-        progress=progress,
-    )
+    with contextlib.ExitStack() as stack:
+        # pass 2 on two cores: frame features in a second process, the rest here (same scores)
+        features = stack.enter_context(feature_worker(programme, activity.frame_s)) if use_workers(programme) else None
+        scores = score_cues(
+            iter_programme(programme),
+            info=programme.info,
+            kind=programme.kind,
+            timings=timings,
+            activity=activity,
+            settings=settings,
+            progress=progress,
+            features=features,
+        )
     return Analysis(
         schema=SCHEMA_VERSION,
         settings=settings.to_dict(),
@@ -375,11 +393,11 @@ def run_alignment(
         scores=(),
         warnings=programme_warnings(loudness, activity, alignment),
     )
-    plan = Plan(schema=SCHEMA_VERSION, settings={}, analysis=analysis, events=(), scenes=())
+    plan = Plan(schema=SCHEMA_VERSION, settings=PlanSettings().to_dict(), analysis=analysis, events=(), scenes=())
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     guard = inputs.all_paths()
-    written = {"alignment": out_dir / "alignment.json", "cues": out_dir / "cues.csv"}
+    written = {"alignment": out_dir / "alignment.json", "cues": out_dir / "cues.csv", "plan": out_dir / "plan.json"}
     summary = {
         "kind": "cueplan-alignment",
         "schema": SCHEMA_VERSION,
@@ -392,6 +410,7 @@ def run_alignment(
     }
     atomic_write_text(written["alignment"], json.dumps(summary, sort_keys=True, indent=1) + "\n", inputs=guard)
     write_cues_csv(plan, written["cues"], inputs=guard)
+    atomic_write_text(written["plan"], plan_json(plan), inputs=guard)  # for `cueplan report`
     retimed = retimed_track(track, timings)
     written["subtitles"] = out_dir / f"retimed.{retimed.format}"
     write_subtitles(written["subtitles"], retimed, inputs=guard)

@@ -62,6 +62,9 @@ def test_align_finds_the_constructed_offset(clean_episode: dict[str, Path], tmp_
     assert alignment["segments"][0]["offset_s"] == pytest.approx(1.5, abs=0.05)
     assert (out_dir / "retimed.srt").is_file()
     assert len(_csv_rows(out_dir / "cues.csv")) == 8
+    code, out = _run("report", out_dir, "--for", "editor", "--plain")
+    assert code == 0, out
+    assert "alignment only" in out
 
 
 def test_analyse_stems_then_replan_without_audio(episode: dict[str, Path], tmp_path: Path) -> None:

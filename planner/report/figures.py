@@ -167,7 +167,7 @@ class Summary:
 
     def lines(self) -> tuple[tuple[str, str], ...]:
         """(label, value) pairs in display order."""
-        counts = ", ".join(f"{n} {v}" for v, n in self.verdicts.items()) or "no cues"
+        counts = ", ".join(f"{n} {v}" for v, n in self.verdicts.items()) or "not scored"
         flags = ", ".join(f"{n} {f}" for f, n in self.flags.items() if n) or "none"
         rows = [(role, path) for role, path in self.inputs]
         rows += [("programme", self.programme), ("alignment", self.alignment),

@@ -115,7 +115,11 @@ def episode_verdict(plan: Plan) -> EpisodeVerdict:
     elif flagged:
         action, why = "targeted-gains", f"{_count(moves, 'move')} for {_count(len(flagged), 'line')}; {share_words}"
     else:
-        action, why = "ok", "every scored line is clear" if scored else "no subtitle cues to score"
+        if scored:
+            why = "every scored line is clear"
+        else:
+            why = "alignment only: masking not scored (run cueplan analyse)" if a.subtitles.cues else "no subtitle cues to score"
+        action = "ok"
     return EpisodeVerdict(action=action, why=why, line=f"{action}: {why}", flagged_share=round(share, 4), masked_cues=masked,
                           unfixable_cues=unfixable, moves=moves, confidence=round(conf, 3))  # fmt: skip
 
