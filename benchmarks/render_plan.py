@@ -1,0 +1,33 @@
+"""Render an analysis folder's plan without verifying: ``python -m benchmarks.render_plan DIR OUT``.
+
+The driver the benchmark uses while ``cueplan render`` cannot yet be called (before
+``planner.pipeline.run_render`` exists): it reads ``DIR/plan.json``, opens the audio the
+plan names and calls :func:`planner.render.renderer.render` with the default
+:class:`~planner.settings.RenderSettings` (EBU R 128), as the command would before its
+verify pass.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from planner.io.audio import open_programme
+from planner.io.exports import load_plan
+from planner.pipeline import input_paths
+from planner.render.renderer import render
+from planner.settings import RenderSettings
+
+
+def main(folder: Path, out_path: Path) -> None:
+    """Render ``folder``'s plan to ``out_path``."""
+    plan = load_plan(folder / "plan.json")
+    inputs = input_paths(plan.analysis, folder)
+    programme = open_programme(mix=inputs.mix, dialogue=inputs.dialogue, background=inputs.background)
+    render(plan, programme, out_path, RenderSettings())
+
+
+if __name__ == "__main__":
+    if len(sys.argv) != 3:
+        sys.exit("usage: python -m benchmarks.render_plan DIR OUT")
+    main(Path(sys.argv[1]), Path(sys.argv[2]))

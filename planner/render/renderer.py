@@ -1,0 +1,413 @@
+"""Render a plan into audio: gain envelopes (or mix-only reduction), loudness, true-peak limit.
+
+Stems: ``out = dialogue * g_dialogue(t) + background * g_background(t)`` in the input
+layout. Mix only: the background is reduced (and the dialogue lifted) under each event by
+:class:`planner.render.separate.MixReducer`. Where no event acts the processed samples
+equal the input samples bit for bit.
+
+Loudness (ITU-R BS.1770-4 integrated, gated) needs the processed programme's loudness
+before the gain can be chosen, so a normalised render reads the programme twice, block by
+block: pass 1 processes and measures; pass 2 processes again (deterministically, the same
+samples), applies the one gain ``target - measured`` and the true-peak limiter, measures
+and writes. Where the limiter will act (the gained true peak reaches the ceiling), up to
+three extra measuring passes raise the gain by the loudness it takes away, so the output
+still lands on the target. With normalisation off one pass suffices. Outputs are written
+through :class:`planner.io.audio.AudioWriter` (temporary file renamed when complete, never
+over an input); the plan's SHA-256 and the render settings go into the file's description
+(BWF ``bext`` for WAV, the Vorbis comment for FLAC).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Iterator
+from contextlib import ExitStack, contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+
+from planner._typing import AudioArray
+from planner.analysis.loudness import LoudnessMeter
+from planner.errors import PlanFileError, SettingsError
+from planner.io.audio import DEFAULT_BLOCK_FRAMES, AudioWriter, Programme, iter_programme
+from planner.io.exports import plan_json
+from planner.io.files import refuse_inputs
+from planner.model import AudioInfo, LoudnessSummary, Plan, Record
+from planner.progress import Progress, no_progress
+from planner.render.envelope import GainEnvelope
+from planner.render.limiter import TruePeakLimiter
+from planner.render.separate import MixReducer
+from planner.settings import RenderSettings
+
+#: File names of the processed stems inside ``stems_out``.
+STEM_NAMES = ("dialogue.wav", "background.wav")
+_FLAC_SUBTYPES = ("PCM_16", "PCM_24")
+#: The limiter is expected to act when the gained true peak comes within this of the ceiling, dB.
+_LIMIT_MARGIN_DB = 0.2
+#: At most this many extra measuring passes correct the gain for the limiter's loudness loss.
+_CORRECTION_PASSES = 3
+#: A correction below this is taken as settled, LU.
+_CORRECTION_LU = 0.02
+
+
+@dataclass(frozen=True)
+class RenderReport(Record):
+    """What a render did and measured.
+
+    Loudness figures are BS.1770-4 integrated loudness (LUFS) of the input, of the
+    processed programme before normalisation, and of the output; true peaks are 4x
+    oversampled (dBTP). ``standard`` names the preset or target (``"off"`` without
+    normalisation), ``tolerance_lu`` its tolerance; ``gain_applied_db`` is the
+    normalisation gain; the limiter figures give its largest gain reduction (dB) and how
+    long it reduced the gain (s). ``within_tolerance`` says whether the output loudness is
+    within the tolerance of the target (``None`` without a target), ``true_peak_ok``
+    whether the output true peak is at or below the ceiling (``None`` without one).
+    """
+
+    output_path: str
+    kind: Literal["mix", "stems"]
+    plan_sha256: str
+    standard: str
+    target_lufs: float | None
+    tolerance_lu: float | None
+    ceiling_dbtp: float | None
+    loudness_before_lufs: float | None
+    loudness_processed_lufs: float | None
+    loudness_after_lufs: float | None
+    true_peak_before_dbtp: float
+    true_peak_after_dbtp: float
+    gain_applied_db: float
+    limiter_max_reduction_db: float
+    limiter_active_s: float
+    within_tolerance: bool | None
+    true_peak_ok: bool | None
+    n_events: int
+    duration_s: float
+    clipped_samples: int = 0
+    stems_out: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+
+def plan_sha256(plan: Plan) -> str:
+    """SHA-256 (hex) of the plan's canonical JSON, the same bytes ``plan.json`` holds."""
+    return hashlib.sha256(plan_json(plan).encode("utf-8")).hexdigest()
+
+
+def render(
+    plan: Plan,
+    programme: Programme,
+    out_path: str | Path,
+    settings: RenderSettings,
+    *,
+    stems_out: Path | None = None,
+    progress: Progress | None = None,
+    block_frames: int = DEFAULT_BLOCK_FRAMES,
+) -> RenderReport:
+    """Apply a plan to a programme and write the clearer-dialogue version.
+
+    Parameters
+    ----------
+    plan : Plan
+        The plan; its analysis must describe audio of the programme's rate and channels.
+    programme : Programme
+        The audio: a mix, or dialogue and background stems.
+    out_path : str or Path
+        Output file (``.wav``/``.bwf`` or ``.flac``); never one of the inputs.
+    settings : RenderSettings
+        Loudness preset or target and true-peak ceiling.
+    stems_out : Path, optional
+        Folder (created if missing) for the processed stems ``dialogue.wav`` and
+        ``background.wav``, with the same normalisation gain as the output (they sum to
+        the output before the limiter). Stems programmes only.
+    progress : Progress, optional
+        Called with ``(stage, seconds done, seconds total)`` for each pass: ``"render: measuring"``,
+        ``"render: measuring limiter (n)"`` (only when the limiter acts), ``"render: writing"``.
+    block_frames : int
+        Frames per block read.
+
+    Returns
+    -------
+    RenderReport
+
+    Raises
+    ------
+    PlanFileError
+        The plan was made for audio of another rate, channel count or length.
+    SettingsError
+        ``stems_out`` for a mix-only programme.
+    OutputError
+        An output would overwrite an input, or its folder does not exist.
+    """
+    info = programme.info
+    _check_matches(plan, programme)
+    out_path = Path(out_path)
+    inputs = [p for p in (programme.mix, programme.dialogue, programme.background) if p is not None]
+    refuse_inputs(out_path, inputs)
+    stem_paths: tuple[Path, ...] = ()
+    if stems_out is not None:
+        if programme.kind != "stems":
+            raise SettingsError("stems_out needs a stems programme (dialogue and background); drop it for a mix")
+        stem_paths = tuple(Path(stems_out) / name for name in STEM_NAMES)
+        for p in stem_paths:
+            refuse_inputs(p, inputs)
+            if p.resolve() == out_path.resolve():
+                raise SettingsError(f"out_path={str(out_path)!r} is one of the processed stems' files; choose another name")
+        Path(stems_out).mkdir(parents=True, exist_ok=True)
+    fs = info.sample_rate_hz
+    total_s = info.duration_s
+    envelopes = (
+        GainEnvelope(plan.events, fs, "dialogue", duration_s=total_s),
+        GainEnvelope(plan.events, fs, "background", duration_s=total_s),
+    )
+    notes: list[str] = []
+    target = settings.target()
+    target_lufs: float | None
+    ceiling: float | None
+    tolerance: float | None
+    if target is not None:
+        target_lufs, ceiling, tolerance, label = target
+    else:
+        target_lufs, ceiling, tolerance = None, settings.true_peak_dbtp, None
+        label = "off" if ceiling is None else f"off, ceiling {ceiling:g} dBTP"
+    sha = plan_sha256(plan)
+
+    passes = _Passes(plan, programme, envelopes, block_frames, progress or no_progress)
+    gain_db, processed_lufs, before_summary = 0.0, None, None
+    if target_lufs is not None:
+        # Pass 1: the gain needs the processed programme's integrated loudness first.
+        before_summary, processed = passes.measure("render: measuring", with_input=True)
+        processed_lufs = processed.integrated_lufs
+        if processed_lufs is None:
+            notes.append("the processed programme is silent after BS.1770 gating; no loudness gain was applied")
+        else:
+            first = target_lufs - processed_lufs
+            gain_db, n_extra = passes.correct_for_limiter(first, target_lufs, ceiling, processed.true_peak_dbtp)
+            if n_extra:
+                notes.append(
+                    f"the limiter takes loudness away: {n_extra} extra measuring pass(es) raised the gain by "
+                    f"{gain_db - first:.2f} dB"
+                )
+
+    limiter = None if ceiling is None else TruePeakLimiter(fs, info.n_channels, ceiling_dbtp=ceiling)
+    writers = _Outputs(out_path, stem_paths, info, inputs, _description(sha, settings, label, ceiling, programme.kind))
+    input_summary, after_summary = passes.write(writers, gain_db, limiter, with_input=before_summary is None)
+    before_summary = before_summary or input_summary
+    assert before_summary is not None
+    if writers.clipped_output:
+        notes.append(f"{writers.clipped_output} output samples exceeded full scale and were clipped (integer format)")
+    if writers.clipped_stems:
+        notes.append(f"{writers.clipped_stems} samples of the processed stems (not limited) were clipped")
+    clipped = writers.clipped_output + writers.clipped_stems
+    within = None
+    if target_lufs is not None and tolerance is not None and after_summary.integrated_lufs is not None:
+        within = abs(after_summary.integrated_lufs - target_lufs) <= tolerance
+    return RenderReport(
+        output_path=str(out_path),
+        kind=programme.kind,
+        plan_sha256=sha,
+        standard=label,
+        target_lufs=target_lufs,
+        tolerance_lu=tolerance,
+        ceiling_dbtp=ceiling,
+        loudness_before_lufs=before_summary.integrated_lufs,
+        loudness_processed_lufs=processed_lufs if target_lufs is not None else after_summary.integrated_lufs,
+        loudness_after_lufs=after_summary.integrated_lufs,
+        true_peak_before_dbtp=before_summary.true_peak_dbtp,
+        true_peak_after_dbtp=after_summary.true_peak_dbtp,
+        gain_applied_db=gain_db,
+        limiter_max_reduction_db=0.0 if limiter is None else limiter.max_reduction_db,
+        limiter_active_s=0.0 if limiter is None else limiter.reduced_frames / fs,
+        within_tolerance=within,
+        true_peak_ok=None if ceiling is None else after_summary.true_peak_dbtp <= ceiling,
+        n_events=len(plan.events),
+        duration_s=total_s,
+        clipped_samples=clipped,
+        stems_out=tuple(str(p) for p in stem_paths),
+        notes=tuple(notes),
+    )
+
+
+class _Outputs:
+    """The output file and the optional processed stems, opened together so they fail together."""
+
+    def __init__(self, out_path: Path, stem_paths: tuple[Path, ...], info: AudioInfo, inputs: list[Path], description: str) -> None:
+        subtype = _subtype(info.subtype, out_path)
+        self._make = [
+            AudioWriter(p, sample_rate_hz=info.sample_rate_hz, n_channels=info.n_channels, subtype=subtype,
+                        inputs=inputs, description=description)
+            for p in (out_path, *stem_paths)
+        ]  # fmt: skip
+        self.clipped_output = 0
+        self.clipped_stems = 0
+
+    @contextmanager
+    def opened(self) -> Iterator[tuple[AudioWriter, list[AudioWriter]]]:
+        """All writers entered; each renames its file only if the whole block succeeds."""
+        with ExitStack() as stack:
+            opened = [stack.enter_context(w) for w in self._make]
+            yield opened[0], opened[1:]
+            self.clipped_output = opened[0].n_clipped
+            self.clipped_stems = sum(w.n_clipped for w in opened[1:])
+
+
+class _Passes:
+    """Reads and processes the programme once per call: measuring passes and the writing pass."""
+
+    def __init__(
+        self,
+        plan: Plan,
+        programme: Programme,
+        envelopes: tuple[GainEnvelope, GainEnvelope],
+        block_frames: int,
+        progress: Progress,
+    ) -> None:
+        self._args = (plan, programme, envelopes, block_frames, progress)
+        self._info = programme.info
+
+    def _meter(self) -> LoudnessMeter:
+        return LoudnessMeter(self._info.sample_rate_hz, self._info.layout)
+
+    def measure(
+        self, stage: str, *, with_input: bool, gain_db: float = 0.0, ceiling: float | None = None
+    ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
+        """Loudness of the input (when asked) and of the processed programme after gain and limiter."""
+        before = self._meter() if with_input else None
+        after = self._meter()
+        gain = np.float32(10.0 ** (gain_db / 20.0))
+        limiter = None if ceiling is None else TruePeakLimiter(self._info.sample_rate_hz, self._info.n_channels, ceiling_dbtp=ceiling)
+        for inp, out, _ in _process(*self._args, stage):
+            if before is not None and inp is not None:
+                _feed(before, inp)
+            y = out if gain == 1.0 else out * gain
+            _feed(after, y if limiter is None else limiter.process(y))
+        if limiter is not None:
+            _feed(after, limiter.flush())
+        return (None if before is None else before.summary()), after.summary()
+
+    def correct_for_limiter(
+        self, gain_db: float, target_lufs: float, ceiling: float | None, peak_dbtp: float
+    ) -> tuple[float, int]:
+        """Raise the gain by the loudness the limiter will take away (extra measuring passes, only if it acts).
+
+        Each pass measures the limited output at the current gain and adds the shortfall; the
+        limiter's loss grows slowly with the gain, so this settles within a few hundredths of a LU.
+        """
+        if ceiling is None or peak_dbtp + gain_db <= ceiling - _LIMIT_MARGIN_DB:
+            return gain_db, 0
+        n = 0
+        for i in range(_CORRECTION_PASSES):
+            n += 1
+            _, limited = self.measure(f"render: measuring limiter ({i + 1})", with_input=False, gain_db=gain_db, ceiling=ceiling)
+            if limited.integrated_lufs is None:
+                break
+            error = target_lufs - limited.integrated_lufs
+            gain_db += error
+            if abs(error) < _CORRECTION_LU:
+                break
+        return gain_db, n
+
+    def write(
+        self, outputs: _Outputs, gain_db: float, limiter: TruePeakLimiter | None, *, with_input: bool
+    ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
+        """The writing pass: process, gain, limit, write (and measure the input when asked, and the output)."""
+        before = self._meter() if with_input else None
+        after = self._meter()
+        gain = np.float32(10.0 ** (gain_db / 20.0))
+        with outputs.opened() as (writer, stem_writers):
+
+            def emit(y: AudioArray) -> None:
+                if y.shape[0]:
+                    writer.write(y)
+                    _feed(after, y)
+
+            for inp, out, stems in _process(*self._args, "render: writing"):
+                if before is not None and inp is not None:
+                    _feed(before, inp)
+                y = out if gain == 1.0 else out * gain
+                emit(y if limiter is None else limiter.process(y))
+                for w, s in zip(stem_writers, stems or ()):
+                    w.write(s if gain == 1.0 else s * gain)
+            if limiter is not None:
+                emit(limiter.flush())
+        return (None if before is None else before.summary()), after.summary()
+
+
+def _feed(meter: LoudnessMeter, x: AudioArray) -> None:
+    """Meter a piece of audio (the reducer and the limiter may hand over empty pieces)."""
+    if x.shape[0]:
+        meter.feed(x)
+
+
+def _process(
+    plan: Plan,
+    programme: Programme,
+    envelopes: tuple[GainEnvelope, GainEnvelope],
+    block_frames: int,
+    progress: Progress,
+    stage: str,
+) -> Iterator[tuple[AudioArray | None, AudioArray, tuple[AudioArray, AudioArray] | None]]:
+    """Yield ``(input mix block, processed block, processed stems)`` in time order.
+
+    For a mix the processed pieces lag the input (the reducer's look-ahead) and the last
+    one comes with no input block; the processed pieces add up to the programme's length.
+    """
+    info = programme.info
+    fs = info.sample_rate_hz
+    total_s = info.duration_s
+    g_dialogue, g_background = envelopes
+    reducer = None
+    if programme.kind == "mix":
+        reducer = MixReducer(g_background, g_dialogue, layout=info.layout, activity=plan.analysis.activity)
+    for blk in iter_programme(programme, block_frames=block_frames):
+        n = blk.n_frames
+        if reducer is not None:
+            out, _ = reducer.process(blk.mix)
+            yield blk.mix, out, None
+        else:
+            assert blk.dialogue is not None and blk.background is not None
+            gd = g_dialogue.block(blk.start_frame, n)
+            gb = g_background.block(blk.start_frame, n)
+            d = blk.dialogue if (gd == 1.0).all() else blk.dialogue * gd[:, None]
+            b = blk.background if (gb == 1.0).all() else blk.background * gb[:, None]
+            yield blk.mix, d + b, (d, b)
+        progress(stage, min((blk.start_frame + n) / fs, total_s), total_s)
+    if reducer is not None:
+        out, _ = reducer.flush()
+        yield None, out, None
+
+
+def _check_matches(plan: Plan, programme: Programme) -> None:
+    """The plan must have been made for audio of this rate, channel count and length (within a block)."""
+    a, b = plan.analysis.audio, programme.info
+    if (a.sample_rate_hz, a.n_channels) != (b.sample_rate_hz, b.n_channels):
+        raise PlanFileError(
+            f"the plan was made for {a.n_channels}-channel audio at {a.sample_rate_hz} Hz, the programme is "
+            f"{b.n_channels}-channel at {b.sample_rate_hz} Hz; render the audio the plan was analysed from",
+            field="analysis.audio",
+        )
+    if abs(a.n_frames - b.n_frames) > DEFAULT_BLOCK_FRAMES:
+        raise PlanFileError(
+            f"the plan was made for {a.duration_s:.3f} s of audio, the programme lasts {b.duration_s:.3f} s; "
+            "render the audio the plan was analysed from",
+            field="analysis.audio.n_frames",
+        )
+
+
+def _subtype(input_subtype: str, out_path: Path) -> str:
+    """The input's sample format where the output format can hold it, else 24-bit PCM."""
+    if out_path.suffix.lower() == ".flac" and input_subtype not in _FLAC_SUBTYPES:
+        return "PCM_24"
+    return input_subtype
+
+
+def _description(sha: str, settings: RenderSettings, label: str, ceiling: float | None, kind: str) -> str:
+    """ASCII metadata (at most 256 characters): plan hash and render settings."""
+    tp = "none" if ceiling is None else f"{ceiling:g} dBTP"
+    text = f"cueplan render; plan sha256 {sha}; from {kind}; loudness {settings.loudness} ({label}); ceiling {tp}"
+    text = text.encode("ascii", "replace").decode("ascii")
+    return text if len(text) <= 256 else text[:256]
+
+
+__all__ = ["RenderReport", "STEM_NAMES", "plan_sha256", "render"]
