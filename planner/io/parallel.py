@@ -1,0 +1,155 @@
+"""Both passes over the audio on two cores: worker processes that read the programme themselves.
+
+Pass 1 (:func:`speech_worker`): the speech detector reads the detection signal in a second
+process while the caller meters the loudness. Pass 2 (:func:`feature_worker`): the frame
+features of the scoring pass (band powers, K-weighted and flat power of every analysed
+signal, :class:`planner.analysis.features.ProgrammeFeatures`) are computed in a second
+process and sent back block by block through a bounded queue, while the caller tracks the
+noise and accumulates the cues. Each worker reads the files on its own (the operating
+system's cache serves the second read), computes exactly what the single-process code
+computes, in the same order, so results are identical. The queue holds at most
+:data:`QUEUE_BLOCKS` blocks, so memory stays constant whatever the programme length.
+
+Workers start by ``fork`` where the platform has it (nothing is imported again), else by
+``spawn``. A worker's exception is raised again in the caller; a worker that dies without
+one (killed) raises :class:`~planner.errors.CueplanError`.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import multiprocessing
+import multiprocessing.context
+import os
+import queue as queue_module
+from collections.abc import Callable, Iterator
+from typing import Any
+
+from planner._typing import FloatArray
+from planner.analysis.channels import DETECTION_SOURCE, detection_signal
+from planner.analysis.features import ProgrammeFeatures
+from planner.analysis.vad import make_detector
+from planner.errors import CueplanError
+from planner.io.audio import Programme, iter_programme
+from planner.model import SpeechActivity
+from planner.settings import AnalysisSettings
+
+#: Programmes at least this long use worker processes; for shorter ones starting a
+#: process costs more than it saves, seconds.
+PARALLEL_MIN_S = 60.0
+#: Blocks of features the pass-2 worker may run ahead of the caller.
+QUEUE_BLOCKS = 8
+_POLL_S = 1.0
+
+
+def use_workers(programme: Programme) -> bool:
+    """Whether the passes over ``programme`` should use a second process (two or more usable cores)."""
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cpus = os.cpu_count() or 1
+    return cpus > 1 and programme.info.duration_s >= PARALLEL_MIN_S
+
+
+def _context() -> multiprocessing.context.BaseContext:
+    # fork starts a worker without importing anything again (spawn re-imports scipy.signal: ~1 s)
+    return multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
+
+
+def speech_source(programme: Programme) -> str:
+    """What the speech detector listens to, in words for reports."""
+    return "dialogue stem" if programme.kind == "stems" else DETECTION_SOURCE[programme.info.layout]
+
+
+def detect_programme_speech(programme: Programme, settings: AnalysisSettings) -> SpeechActivity:
+    """The speech track of a programme: its detection signal through the configured detector.
+
+    The signal is that of the mix, or of the dialogue stem alone (read as a one-file
+    programme of the full length, so a shorter stem gets the trailing zeros it gets in
+    :func:`planner.io.audio.iter_programme` of the stems).
+    """
+    info = programme.info
+    detector = make_detector(
+        settings.vad, info.sample_rate_hz, aggressiveness=settings.vad_aggressiveness, source=speech_source(programme)
+    )
+    speech = programme
+    if programme.kind == "stems":
+        speech = dataclasses.replace(programme, kind="mix", mix=programme.dialogue, dialogue=None, background=None)
+    for block in iter_programme(speech):
+        detector.feed(detection_signal(block.mix, info.layout))
+    return detector.finish()
+
+
+def _run(target: Callable[..., Any], args: tuple[Any, ...], out: Any) -> None:
+    """Worker body: put ``("item", value)`` for each value ``target`` yields, then ``("done", None)``."""
+    try:
+        for value in target(*args):
+            out.put(("item", value))
+        out.put(("done", None))
+    except BaseException as exc:  # handed to the caller, which raises it
+        out.put(("error", exc))
+
+
+def _speech_items(programme: Programme, settings: AnalysisSettings) -> Iterator[SpeechActivity]:
+    yield detect_programme_speech(programme, settings)
+
+
+def _feature_items(programme: Programme, frame_s: float) -> Iterator[dict[str, FloatArray]]:
+    features = ProgrammeFeatures(programme.info, programme.kind, frame_s=frame_s)
+    for block in iter_programme(programme):
+        yield features.process(block)
+    yield features.flush()
+
+
+def _received(out: Any, worker: multiprocessing.process.BaseProcess) -> Iterator[Any]:
+    while True:
+        try:
+            kind, value = out.get(timeout=_POLL_S)
+        except queue_module.Empty:
+            if not worker.is_alive():
+                raise CueplanError(
+                    f"a worker process stopped without a result (exit code {worker.exitcode}); "
+                    "the machine may be short of memory: run again"
+                ) from None
+            continue
+        if kind == "error":
+            raise value
+        if kind == "done":
+            return
+        yield value
+
+
+@contextlib.contextmanager
+def _worker(target: Callable[..., Any], args: tuple[Any, ...], maxsize: int) -> Iterator[Iterator[Any]]:
+    context = _context()
+    out = context.Queue(maxsize=maxsize)
+    worker = context.Process(target=_run, args=(target, args, out), daemon=True)
+    worker.start()
+    try:
+        yield _received(out, worker)
+    finally:
+        if worker.is_alive():
+            worker.terminate()
+        worker.join()
+        out.close()
+        out.join_thread()
+
+
+@contextlib.contextmanager
+def speech_worker(programme: Programme, settings: AnalysisSettings) -> Iterator[Callable[[], SpeechActivity]]:
+    """Start :func:`detect_programme_speech` in a second process; the context gives a function that waits for it."""
+    with _worker(_speech_items, (programme, settings), 1) as items:
+        yield lambda: next(items)
+
+
+@contextlib.contextmanager
+def feature_worker(programme: Programme, frame_s: float) -> Iterator[Iterator[dict[str, FloatArray]]]:
+    """Compute the scoring pass's frame features in a second process; the context gives them in order.
+
+    The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s).process(block)`` for every
+    block of :func:`planner.io.audio.iter_programme`, then its ``flush()``: what
+    :func:`planner.analysis.masking.score_cues` takes as ``features``.
+    """
+    with _worker(_feature_items, (programme, frame_s), QUEUE_BLOCKS) as items:
+        yield items
