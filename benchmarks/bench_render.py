@@ -18,6 +18,7 @@ default :class:`~planner.settings.PlanSettings`:
   issue 6: >= 15 dB) are measured exactly; the mix is also rendered to EBU R 128;
 - every output: integrated loudness by pyloudnorm (``filter_class="DeMan"``, BS.1770-4)
   against the target, true peak by 4x ``scipy.signal.resample_poly`` against the ceiling;
+- limiter: one stereo programme rendered to -14 LUFS, loud enough that the limiter works;
 - speed: one longer stereo programme rendered from stems and from the mix (EBU R 128,
   both passes, files in and out), seconds per programme hour, wall clock and CPU time of
   this process (targets: 12 s from stems, 20 s from a stereo mix).
@@ -181,6 +182,16 @@ def mix_case(prog: SynthProgramme, paths: dict[str, Path], work: Path) -> dict[s
     return row
 
 
+def limited(work: Path) -> dict[str, float]:
+    """A render loud enough (-14 LUFS) that the true-peak limiter must work."""
+    prog = headroom(synth_programme(background="music", snr_db=3.0, n_lines=6, seed=5, layout="stereo"))
+    paths = write_programme(prog, work, stems=True, subtitles=())
+    plan = make_plan(analyse(prog, paths, "stems"), PlanSettings())
+    stems = open_programme(dialogue=paths["dialogue"], background=paths["background"])
+    rep = render(plan, stems, work / "limited.wav", RenderSettings(loudness="-14"))
+    return {"limiter_max_reduction_db": rep.limiter_max_reduction_db, **output_checks(work / "limited.wav", prog.sample_rate_hz, -14.0)}
+
+
 def speed(work: Path, n_lines: int) -> dict[str, float]:
     prog = synth_programme(background="pink", snr_db=3.0, n_lines=n_lines, seed=99, layout="stereo")
     paths = write_programme(prog, work, stems=True, subtitles=())
@@ -218,9 +229,13 @@ def main() -> None:
                     rows.append({"layout": layout, "background": background, "snr_db": snr,
                                  "stems": stems_case(prog, paths, work), "mix": mix_case(prog, paths, work)})  # fmt: skip
                     print_row(rows[-1])
+        lim_dir = Path(tmp) / "limited"
+        lim_dir.mkdir()
+        lim = limited(lim_dir)
         sp = speed(Path(tmp), 20 if args.quick else 120)
     summary = summarise(rows)
     summary["speed"] = sp
+    summary["limited_render"] = lim
     print_summary(summary)
     args.json.parent.mkdir(parents=True, exist_ok=True)
     args.json.write_text(json.dumps({"summary": summary, "programmes": rows}, indent=2, sort_keys=True) + "\n", encoding="utf-8")
@@ -280,6 +295,9 @@ def print_summary(s: dict) -> None:  # type: ignore[type-arg]
          f"{s['mix_dialogue_si_sdr_db']['min']:.1f}, median {s['mix_dialogue_si_sdr_db']['median']:.1f} dB)", "all"),
         ("max |loudness error| (pyloudnorm DeMan)", f"{s['max_abs_loudness_error_lu']:.3f} LU over {s['outputs_checked']} outputs", "<= 0.1 LU"),
         ("max true peak (4x resample_poly)", f"{s['max_true_peak_dbtp']:+.2f} dBTP", "<= -1.0 dBTP"),
+        ("-14 LUFS render (limiter working)", f"loudness error {s['limited_render']['loudness_error_lu']:+.3f} LU, true peak "
+         f"{s['limited_render']['true_peak_dbtp']:+.2f} dBTP, limiter up to {s['limited_render']['limiter_max_reduction_db']:.1f} dB",
+         "0.1 LU, -1 dBTP"),
         (f"speed, stems ({sp['duration_s']:.0f} s programme)", f"{sp['stems_s_per_hour']:.1f} s per programme hour "
          f"(CPU {sp['stems_cpu_s_per_hour']:.1f} s; events on {100 * sp['stems_event_share']:.0f} %)", "12 s"),
         ("speed, stereo mix", f"{sp['mix_s_per_hour']:.1f} s per programme hour "

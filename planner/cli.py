@@ -80,14 +80,16 @@ def _progress(quiet: bool):  # type: ignore[no-untyped-def]
 
 def _analysis_settings(**kwargs: Any):  # type: ignore[no-untyped-def]
     from planner.analysis.hearing import load_audiogram
+    from planner.analysis.sii import SII_BANDS_HZ
     from planner.settings import AnalysisSettings
 
     audiogram = kwargs.pop("audiogram")
     if audiogram is not None:
+        # Stored on the SII bands, so the plan carries the thresholds it was scored with.
         profile = load_audiogram(audiogram)
         kwargs["hearing"] = "audiogram"
-        kwargs["audiogram_hz"] = tuple(float(f) for f in profile.source_hz)
-        kwargs["audiogram_db_hl"] = tuple(float(t) for t in profile.source_db_hl)
+        kwargs["audiogram_hz"] = tuple(float(f) for f in SII_BANDS_HZ)
+        kwargs["audiogram_db_hl"] = tuple(float(t) for t in profile.thresholds_db_hl)
     return AnalysisSettings(**kwargs)
 
 
@@ -204,7 +206,7 @@ def plan(
     move: Annotated[str, typer.Option("--move", help="What moves: background, dialogue or both.")] = "background",
     hearing: Annotated[str | None, typer.Option("--hearing", help="Plan for another hearing profile.")] = None,
 ) -> None:
-    """Plan again from a saved analysis with other settings (reads no audio)."""
+    """Plan again from a saved analysis with other settings (reads no audio; report.html is left as it was)."""
     from planner import pipeline
     from planner.report import terminal
     from planner.settings import STRENGTH_STEPS, PlanSettings
@@ -329,7 +331,7 @@ def _print_written(written: dict[str, Path]) -> None:
 def _mount_triage() -> None:
     from planner.batch.cli import triage_app
 
-    app.add_typer(triage_app, name="triage", help="Triage a whole archive into a resumable catalogue.")
+    app.add_typer(triage_app, name="triage")
 
 
 _mount_triage()

@@ -50,7 +50,7 @@ from planner.model import (
 from planner.progress import Progress, no_progress
 from planner.planning.hearing import for_hearing
 from planner.planning.scenes import make_plan
-from planner.render.renderer import RenderReport, render
+from planner.render.renderer import RenderReport, plan_sha256, render
 from planner.render.verify import VerifyReport, VerifyRow, verify, write_verify_csv
 from planner.report.clips import extract_clips
 from planner.report.html import render_html, write_html
@@ -358,8 +358,6 @@ def replan(out_dir: Path, plan_settings: PlanSettings, *, hearing: str | None = 
     plan = make_plan(analysis, plan_settings)
     inputs = input_paths(analysis, out_dir).all_paths()
     written = write_exports(plan, out_dir, inputs=inputs)
-    # A new plan makes any earlier verify stale: the report shows the plan alone.
-    written.update(write_report_html(out_dir, ReportInputs(plan=plan, verify=None)))
     return RunResult(plan=plan, out_dir=Path(out_dir), written=written)
 
 
@@ -425,6 +423,14 @@ class ReportInputs:
     verify: tuple[VerifyRow, ...] | None
 
 
+def _render_is_current(out_dir: Path, plan: Plan) -> bool:
+    """Whether render.json was made from this very plan (a re-plan makes verify rows stale)."""
+    path = Path(out_dir) / RENDER_FILE
+    if not path.is_file():
+        return False
+    return bool(json.loads(path.read_text(encoding="utf-8")).get("plan_sha256") == plan_sha256(plan))
+
+
 def load_report_inputs(out_dir: Path) -> ReportInputs:
     """Load ``plan.json`` (checked) and ``verify.json`` when a render has been verified."""
     plan = load_plan(Path(out_dir) / "plan.json")
@@ -432,8 +438,9 @@ def load_report_inputs(out_dir: Path) -> ReportInputs:
     rows: tuple[VerifyRow, ...] | None = None
     if path.is_file():
         data = json.loads(path.read_text(encoding="utf-8"))
-        data.pop("kind", None)
-        rows = VerifyReport.from_dict(data, where="verify").rows
+        data.pop("file", None)
+        if _render_is_current(out_dir, plan):
+            rows = VerifyReport.from_dict(data, where="verify").rows
     return ReportInputs(plan=plan, verify=rows)
 
 
@@ -444,7 +451,7 @@ VERIFY_FILE = "verify.json"
 
 
 def _record_json(kind: str, record: RenderReport | VerifyReport) -> str:
-    data = {"kind": kind, **record.to_dict()}
+    data = {"file": kind, **record.to_dict()}
     return json.dumps(data, sort_keys=True, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
 
 
@@ -496,6 +503,8 @@ def run_render(
             progress=progress,
             level_gain_db=report.gain_applied_db,
         )
+    # The record names the output relative to the analysis folder, like the inputs.
+    report = dataclasses.replace(report, output_path=_relative(Path(out_path), out_dir))
     written = {"rendered": Path(out_path), "render": out_dir / RENDER_FILE}
     atomic_write_text(written["render"], _record_json("cueplan-render", report), inputs=guard)
     written.update(_write_verify(checked, out_dir, guard))
@@ -521,7 +530,7 @@ def run_verify(out_dir: Path, rendered: Path, *, progress: Progress | None = Non
     render_path = out_dir / RENDER_FILE
     if render_path.is_file():
         data = json.loads(render_path.read_text(encoding="utf-8"))
-        if Path(data.get("output_path", "")).resolve() == Path(rendered).resolve():
+        if (out_dir / data.get("output_path", "")).resolve() == Path(rendered).resolve():
             level_gain_db = float(data.get("gain_applied_db", 0.0))
     checked = verify(plan, open_programme(mix=rendered), progress=progress, level_gain_db=level_gain_db)
     return checked, _write_verify(checked, out_dir, guard)
@@ -532,7 +541,7 @@ def write_report_html(out_dir: Path, loaded: ReportInputs, *, rendered: Path | N
     out_dir = Path(out_dir)
     inputs = input_paths(loaded.plan.analysis, out_dir)
     if rendered is None and (out_dir / RENDER_FILE).is_file():
-        candidate = Path(json.loads((out_dir / RENDER_FILE).read_text(encoding="utf-8")).get("output_path", ""))
+        candidate = out_dir / json.loads((out_dir / RENDER_FILE).read_text(encoding="utf-8")).get("output_path", "")
         rendered = candidate if candidate.is_file() else None
     programme = open_programme(mix=inputs.mix, dialogue=inputs.dialogue, background=inputs.background)
     clips = extract_clips(loaded.plan, programme, rendered_path=rendered, top=5)

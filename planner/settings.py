@@ -87,6 +87,11 @@ class AnalysisSettings(_Settings):
         _check_choice("fps", self.fps, FRAME_RATES)
         if self.drop_frame and self.fps not in ("29.97", "59.94"):
             raise SettingsError(f"drop_frame=True needs fps 29.97 or 59.94, not fps={self.fps}; pass --ndf or a DF rate")
+        from planner.analysis.hearing import PROFILE_NAMES
+
+        _check_choice("hearing", self.hearing, (*PROFILE_NAMES, "audiogram"))
+        if self.hearing == "audiogram" and not self.audiogram_hz:
+            raise SettingsError("hearing='audiogram' needs the audiogram's points; pass --audiogram FILE")
         _check_range("listening_level_db_spl", self.listening_level_db_spl, 30.0, 100.0)
         _check_range("snap_tolerance_s", self.snap_tolerance_s, 0.0, 5.0)
         _check_range("max_offset_s", self.max_offset_s, 0.0, 600.0)

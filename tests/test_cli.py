@@ -142,3 +142,28 @@ def test_plan_refuses_a_hand_edited_positive_cut(episode: dict[str, Path], tmp_p
     code, out = _run("report", out_dir, "--plain")
     assert code == 2
     assert plan["events"][0]["event_id"] in out and "background_gain_db" in out
+
+
+def test_analyse_with_an_audiogram_scores_for_it(episode: dict[str, Path], tmp_path: Path) -> None:
+    # Ground truth: a flat 40 dB HL audiogram raises every band threshold by 40 dB, so the
+    # SII for it can only be lower than for normal hearing (ANSI S3.5 clause 4.5, D = max(Z, X + T')).
+    audiogram = tmp_path / "flat40.csv"
+    audiogram.write_text("frequency_hz,threshold_db_hl\n250,40\n1000,40\n4000,40\n8000,40\n", encoding="utf-8")
+    out_dir = tmp_path / "hoh"
+    code, out = _run(
+        "analyse", episode["mix"], episode["subtitles"], "--out", out_dir, "--vad", "fast", "--audiogram", audiogram, "--quiet"
+    )  # fmt: skip
+    assert code == 0, out
+    analysis = json.loads((out_dir / "analysis.json").read_text())
+    assert analysis["settings"]["hearing"] == "audiogram"
+    assert analysis["settings"]["audiogram_db_hl"] == [40.0] * 18
+    scored = [s for s in analysis["scores"] if s["sii"] is not None]
+    assert scored and all(s["sii"] <= s["sii_by_profile"]["normal"] for s in scored)
+
+
+def test_bad_audiogram_exits_2(episode: dict[str, Path], tmp_path: Path) -> None:
+    audiogram = tmp_path / "bad.csv"
+    audiogram.write_text("frequency_hz,threshold_db_hl\n1000,40\n500,30\n", encoding="utf-8")
+    code, out = _run("analyse", episode["mix"], episode["subtitles"], "--out", tmp_path / "o", "--audiogram", audiogram)
+    assert code == 2
+    assert not (tmp_path / "o").exists()

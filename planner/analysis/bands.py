@@ -33,9 +33,7 @@ from __future__ import annotations
 
 import numpy as np
 import numpy.typing as npt
-import scipy.fft
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import signal
 
 from planner._typing import AudioArray, FloatArray
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz
@@ -55,6 +53,10 @@ DECIMATION_STOP_DB = 80.0
 
 # Frames transformed together: bounds the work arrays to a few MB.
 _FRAMES_PER_BATCH = 1024
+# Multiply-adds per matrix product, at most: OpenBLAS runs a product of m*n*k <= 4 * 65536
+# single-threaded (GEMM_MULTITHREAD_THRESHOLD, from memory). Its threads spin-wait for each
+# other, which cost up to 100 times the arithmetic on a busy 2-core machine (measured).
+_PRODUCT_MACS = 1 << 16
 
 
 def _bin_weights(edges_hz: FloatArray, n_fft: int, sample_rate_hz: float) -> FloatArray:
@@ -70,6 +72,18 @@ def _bin_weights(edges_hz: FloatArray, n_fft: int, sample_rate_hz: float) -> Flo
     return np.clip(overlap / df, 0.0, 1.0)
 
 
+def _stacked_product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``a @ b`` for a tall ``a``, as a stack of products small enough to stay single-threaded."""
+    rows = max(_PRODUCT_MACS // (a.shape[1] * b.shape[1]), 1)
+    n_whole = a.shape[0] // rows * rows
+    out = np.empty((a.shape[0], b.shape[1]), dtype=np.result_type(a, b))
+    if n_whole:
+        np.matmul(a[:n_whole].reshape(-1, rows, a.shape[1]), b, out=out[:n_whole].reshape(-1, rows, b.shape[1]))
+    if n_whole < a.shape[0]:
+        np.matmul(a[n_whole:], b, out=out[n_whole:])
+    return out
+
+
 class _Decimator:
     """Streaming FIR decimation by an integer factor (polyphase, one matrix product per call).
 
@@ -79,6 +93,8 @@ class _Decimator:
     """
 
     def __init__(self, sample_rate_hz: float, factor: int, passband_hz: float) -> None:
+        from scipy import signal  # see _Path.__init__
+
         stop_hz = sample_rate_hz / factor - passband_hz  # lowest frequency aliasing into the pass band
         n_taps, beta = signal.kaiserord(DECIMATION_STOP_DB, (stop_hz - passband_hz) / (sample_rate_hz / 2))
         n_phases = -(-n_taps // factor)
@@ -101,7 +117,7 @@ class _Decimator:
             return np.empty(0, dtype=np.float32)
         # partial[r, p]: input row r (factor samples) against tap phase p; y[m] sums the
         # diagonal partial[m + p, p].
-        partial = data[: n_rows * self.factor].reshape(n_rows, self.factor) @ self._taps
+        partial = _stacked_product(data[: n_rows * self.factor].reshape(n_rows, self.factor), self._taps)
         y = partial[:n_out, 0].copy()
         for p in range(1, self._n_phases):
             y += partial[p : p + n_out, p]
@@ -113,6 +129,12 @@ class _Path:
     """One window length at one (possibly decimated) rate, and the bands it measures."""
 
     def __init__(self, sample_rate_hz: float, window_s: float, edges_hz: FloatArray, factor: int) -> None:
+        # scipy.signal and scipy.fft are imported on first use: they take about a second to
+        # import, and planning needs nothing from this module but its constants.
+        import scipy.fft
+        from scipy import signal
+
+        self._rfft = scipy.fft.rfft
         self.sample_rate_hz = sample_rate_hz
         self.factor = factor
         self.passband_hz = float(edges_hz[-1, 1]) if edges_hz.size else 0.0
@@ -128,14 +150,9 @@ class _Path:
         used = np.flatnonzero(weights.any(axis=1))
         self.first_bin = int(used[0]) if used.size else 0
         self.stop_bin = int(used[-1]) + 1 if used.size else 0
-        # Each band's bins are contiguous: keep (first, stop, weights) per band, relative to
-        # first_bin. Summed with multiply-and-add rather than a matrix product, whose BLAS
-        # threading costs more than it saves on these small shapes.
-        self.band_bins: list[tuple[int, int, FloatArray]] = []
-        for b in range(weights.shape[1]):
-            nz = np.flatnonzero(weights[:, b])
-            lo, hi = (int(nz[0]), int(nz[-1]) + 1) if nz.size else (self.first_bin, self.first_bin)
-            self.band_bins.append((lo - self.first_bin, hi - self.first_bin, weights[lo:hi, b]))
+        # Rows first_bin..stop_bin-1: the bins any band uses (see _stacked_product for why
+        # the product is cut into small ones).
+        self.band_weights = np.ascontiguousarray(weights[self.first_bin : self.stop_bin])
         self.reset()
 
     def reset(self) -> None:
@@ -178,12 +195,13 @@ class _Path:
             frames = sliding_window_view(self.buf, self.n_window)[starts[0] : starts[-1] + 1 : step]
         else:
             frames = self.buf[starts[:, None] + np.arange(self.n_window)]
-        spec = scipy.fft.rfft(frames * self.window, axis=1)[:, self.first_bin : self.stop_bin]
-        power = spec.real.astype(np.float64) ** 2 + spec.imag.astype(np.float64) ** 2
-        out = np.empty((power.shape[0], len(self.band_bins)))
-        for b, (lo, hi, w) in enumerate(self.band_bins):
-            out[:, b] = (power[:, lo:hi] * w).sum(axis=1)
-        return out
+        spec = self._rfft(frames * self.window, axis=1, overwrite_x=True)[:, self.first_bin : self.stop_bin]
+        power = spec.real.astype(np.float64)
+        power *= power
+        imag = spec.imag.astype(np.float64)
+        imag *= imag
+        power += imag
+        return _stacked_product(power, self.band_weights)
 
     def discard_before(self, centre_in: float) -> None:
         """Drop the samples no window from this frame centre on needs."""

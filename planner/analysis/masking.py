@@ -28,7 +28,7 @@ open from :data:`~planner.analysis.estimate.CONTEXT_S` before its span to as lon
 from __future__ import annotations
 
 import warnings
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
@@ -124,8 +124,8 @@ class _ScoringPass:
                 )
             )
 
-    def feed(self, block: ProgrammeBlock) -> None:
-        """Add one block (contiguous with the previous one)."""
+    def feed(self, block: ProgrammeBlock, views: dict[str, FloatArray] | None = None) -> None:
+        """Add one block (contiguous with the previous one); ``views``: its features if computed elsewhere."""
         if block.start_frame != self.samples_done:
             raise InputError(
                 f"audio blocks must be contiguous from sample 0; got a block at {block.start_frame}, "
@@ -134,13 +134,13 @@ class _ScoringPass:
         end = self.samples_done + block.n_frames
         self._open(end)
         self._samples(block)
-        self._frames(self.features.process(block))
+        self._frames(self.features.process(block) if views is None else views)
         self.samples_done = end
         self._close(final=False)
 
-    def finish(self) -> tuple[CueScore, ...]:
-        """Scores of every cue, in index order, after the last block."""
-        self._frames(self.features.flush())
+    def finish(self, views: dict[str, FloatArray] | None = None) -> tuple[CueScore, ...]:
+        """Scores of every cue, in index order, after the last block (``views``: the features' flush)."""
+        self._frames(self.features.flush() if views is None else views)
         self._open(None)
         self._close(final=True)
         return tuple(self.scores[i] for i in sorted(self.scores))
@@ -320,6 +320,7 @@ def score_cues(
     activity: SpeechActivity,
     settings: AnalysisSettings,
     progress: Progress | None = None,
+    features: Iterable[dict[str, FloatArray]] | None = None,
 ) -> tuple[CueScore, ...]:
     """Score every cue for masking in one pass over the programme's blocks.
 
@@ -339,6 +340,10 @@ def score_cues(
         Listening level (dB SPL at -23 LUFS) and hearing profile.
     progress : Progress, optional
         Called as ``progress("scoring", seconds done, seconds total)``.
+    features : iterable of dict, optional
+        The frame features of the same blocks computed elsewhere (e.g. in another process):
+        ``ProgrammeFeatures(info, kind, frame_s=activity.frame_s)``'s ``process(block)`` for
+        every block, then its ``flush()``. Computed here when omitted; the scores are the same.
 
     Returns
     -------
@@ -348,11 +353,22 @@ def score_cues(
     Raises
     ------
     InputError
-        If the blocks are not contiguous from sample 0, or stems blocks lack a stem.
+        If the blocks are not contiguous from sample 0, stems blocks lack a stem, or
+        ``features`` ends before the blocks do.
     """
     report = progress or no_progress
     scoring = _ScoringPass(info, kind, timings, activity, settings)
+    views = None if features is None else iter(features)
     for block in blocks:
-        scoring.feed(block)
+        scoring.feed(block, None if views is None else _next_views(views))
         report("scoring", scoring.samples_done / info.sample_rate_hz, info.duration_s)
-    return scoring.finish()
+    return scoring.finish(None if views is None else _next_views(views))
+
+
+def _next_views(views: Iterator[dict[str, FloatArray]]) -> dict[str, FloatArray]:
+    try:
+        return next(views)
+    except StopIteration:
+        raise InputError(
+            "features= ended before the audio blocks; pass one entry per block and one for the flush"
+        ) from None

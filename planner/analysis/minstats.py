@@ -23,6 +23,8 @@ minimum statistics", IEEE Trans. Speech Audio Process. 9(5), 504-512.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import numpy.typing as npt
 
@@ -46,6 +48,7 @@ _SLOPE_STEPS = ((0.03, 8.0), (0.05, 4.0), (0.06, 2.0))
 _SLOPE_DEFAULT = 1.2
 # Power floor (re full scale) so digital silence does not divide by zero: -200 dB.
 _POWER_FLOOR = 1e-20
+_sum = np.add.reduce
 
 
 def m_of_d(d: float) -> float:
@@ -102,34 +105,61 @@ class MinimumStatistics:
         self._buffer_i = 0
         self._sub_count = 1
         self._local_min = np.zeros(n, dtype=bool)
+        # work arrays of _step
+        self._alpha, self._beta, self._one_minus_beta, self._tmp, self._q_inv, self._q, self._candidate = (
+            np.empty(n) for _ in range(7)
+        )
+        self._lower = np.empty(n, dtype=bool)
         self._started = True
 
     def _step(self, y: FloatArray) -> FloatArray:
+        # One call per 10 ms frame on arrays of a few dozen values, so the cost is numpy's
+        # per-call overhead: the arrays are updated in place (with the same operations in the
+        # same order as the formulas, hence the same values), and slow helpers (np.clip,
+        # .mean, np.where, np.errstate) are replaced by plain ufuncs.
+        p, noise, tmp = self._p, self._noise, self._tmp
         # Correction factor for the smoothing (Eq. 11), from the whole frame's power.
-        ratio = self._p.sum() / y.sum()
+        ratio = _sum(p) / _sum(y)
         alpha_c_tilde = 1.0 / (1.0 + (ratio - 1.0) ** 2)
         self._alpha_c = ALPHA_C_SMOOTH * self._alpha_c + (1.0 - ALPHA_C_SMOOTH) * max(alpha_c_tilde, 0.7)
         # Optimal smoothing factor (Eq. 7 with alpha_c), floored at ALPHA_MIN.
-        alpha = ALPHA_MAX * self._alpha_c / (1.0 + (self._p / self._noise - 1.0) ** 2)
-        alpha = np.maximum(alpha, ALPHA_MIN)
-        self._p = alpha * self._p + (1.0 - alpha) * y
+        alpha = np.divide(p, noise, out=self._alpha)
+        alpha -= 1.0
+        np.square(alpha, out=alpha)
+        alpha += 1.0
+        np.divide(ALPHA_MAX * self._alpha_c, alpha, out=alpha)
+        np.maximum(alpha, ALPHA_MIN, out=alpha)
+        # P = alpha P + (1 - alpha) y  (Eq. 4)
+        np.multiply(alpha, p, out=p)
+        np.subtract(1.0, alpha, out=tmp)
+        tmp *= y
+        p += tmp
         # Variance of P from first and second moments (Eq. 23), and 1/Q_eq (Eq. 16).
-        beta = np.minimum(alpha * alpha, BETA_MAX)
-        self._p_bar = beta * self._p_bar + (1.0 - beta) * self._p
-        self._p2_bar = beta * self._p2_bar + (1.0 - beta) * self._p * self._p
-        var_p = self._p2_bar - self._p_bar**2
-        q_inv = np.clip(var_p / (2.0 * self._noise**2), 0.0, 0.5)
-        q_inv_mean = float(q_inv.mean())
-        b_c = 1.0 + A_V * np.sqrt(q_inv_mean)  # Eq. 22
-        with np.errstate(divide="ignore"):
-            q = 1.0 / q_inv
+        beta = np.multiply(alpha, alpha, out=self._beta)
+        np.minimum(beta, BETA_MAX, out=beta)
+        one_minus_beta = np.subtract(1.0, beta, out=self._one_minus_beta)
+        self._p_bar *= beta
+        np.multiply(one_minus_beta, p, out=tmp)
+        self._p_bar += tmp
+        self._p2_bar *= beta
+        tmp *= p  # (1 - beta) P P
+        self._p2_bar += tmp
+        q_inv = np.square(self._p_bar, out=self._q_inv)
+        np.subtract(self._p2_bar, q_inv, out=q_inv)  # var P
+        np.square(noise, out=tmp)
+        tmp *= 2.0
+        q_inv /= tmp
+        np.maximum(q_inv, 0.0, out=q_inv)
+        np.minimum(q_inv, 0.5, out=q_inv)
+        q_inv_mean = float(_sum(q_inv) / q_inv.size)
+        b_c = 1.0 + A_V * math.sqrt(q_inv_mean)  # Eq. 22
+        # Q_eq = 1 / q_inv, infinite where q_inv is 0 (then no bias below; process() lets 1/0 pass).
+        q = np.divide(1.0, q_inv, out=self._q)
         # Bias of the minimum over D and over V frames (Eqs. 17-18), infinite Q_eq -> no bias.
-        b_min = 1.0 + (self.window_len - 1) * 2.0 / ((q - 2.0 * self._m_d) / (1.0 - self._m_d))
-        b_min_sub = 1.0 + (self.sub_len - 1) * 2.0 / ((q - 2.0 * self._m_v) / (1.0 - self._m_v))
-        candidate = self._p * b_min * b_c
-        lower = candidate < self._actmin
-        self._actmin = np.where(lower, candidate, self._actmin)
-        self._actmin_sub = np.where(lower, self._p * b_min_sub * b_c, self._actmin_sub)
+        candidate = self._biased(q, self.window_len, self._m_d, b_c, self._candidate)
+        lower = np.less(candidate, self._actmin, out=self._lower)
+        np.copyto(self._actmin, candidate, where=lower)
+        np.copyto(self._actmin_sub, self._biased(q, self.sub_len, self._m_v, b_c, tmp), where=lower)
         if self._sub_count == self.sub_len:
             # End of a sub-window: store its minimum, take the minimum over the last U.
             self._local_min[lower] = False
@@ -146,11 +176,21 @@ class MinimumStatistics:
             self._actmin[:] = np.inf
         else:
             if self._sub_count > 1:
-                self._local_min[lower] = True
+                self._local_min |= lower
             self._sub_count += 1
         self._noise = np.minimum(self._actmin_sub, self._pmin_u)
         self._pmin_u = self._noise
         return self._noise
+
+    def _biased(self, q: FloatArray, d: int, m: float, b_c: float, out: FloatArray) -> FloatArray:
+        """``P B_min(d, Q_eq) B_c`` with ``B_min = 1 + (d - 1) 2 / ((Q_eq - 2 M) / (1 - M))`` (Eqs. 17-18)."""
+        np.subtract(q, 2.0 * m, out=out)
+        out /= 1.0 - m
+        np.divide((d - 1) * 2.0, out, out=out)
+        out += 1.0
+        np.multiply(self._p, out, out=out)
+        out *= b_c
+        return out
 
     def process(self, power: npt.ArrayLike) -> FloatArray:
         """Noise power estimate for each frame.
@@ -171,10 +211,11 @@ class MinimumStatistics:
                 f"power has shape {y_all.shape}; pass (n_frames, {self.n_features}) powers per frame"
             )
         out = np.empty_like(y_all)
-        for i, y in enumerate(y_all):
-            if not self._started:
-                self._start(y)
-                out[i] = self._noise
-                continue
-            out[i] = self._step(y)
+        with np.errstate(divide="ignore"):
+            for i, y in enumerate(y_all):
+                if not self._started:
+                    self._start(y)
+                    out[i] = self._noise
+                    continue
+                out[i] = self._step(y)
         return out
