@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import contextlib
 import json
-import sys
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Annotated, Any, TypeVar
@@ -289,7 +288,7 @@ def report(
         loaded = pipeline.load_report_inputs(folder)
         written = pipeline.write_report_html(folder, loaded) if html else {}
     if as_json:
-        stdout.print_json(json.dumps(terminal.report_json(loaded.plan, view=view, top=top, verify_rows=loaded.verify)))
+        stdout.print_json(json.dumps(terminal.report_json(loaded.plan, view=view, top=top, verify_rows=loaded.verify)))  # type: ignore[arg-type]
     else:
         console = Console(no_color=True, highlight=False, soft_wrap=False) if plain else stdout
         terminal.print_report(console, loaded.plan, top=top, view=view, verify_rows=loaded.verify, plain=plain)  # type: ignore[arg-type]
@@ -343,4 +342,4 @@ def main() -> None:
 
 
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    main()

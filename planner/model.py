@@ -57,7 +57,7 @@ class Record:
         label = where or cls.__name__
         if not isinstance(data, dict):
             raise PlanFileError(f"expected an object for {cls.__name__}, got {type(data).__name__}", field=label)
-        hints = _type_hints(cls)
+        hints = _type_hints(cls)  # type: ignore[arg-type]
         names = {f.name for f in dataclasses.fields(cls)}  # type: ignore[arg-type]
         unknown = sorted(set(data) - names)
         if unknown:

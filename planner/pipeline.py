@@ -39,6 +39,7 @@ from planner.model import (
     Analysis,
     AudioInfo,
     Cue,
+    CueScore,
     CueTiming,
     InputFile,
     LoudnessSummary,
@@ -205,24 +206,19 @@ def programme_warnings(loudness: LoudnessSummary, activity: SpeechActivity, alig
     return tuple(dict.fromkeys(out))
 
 
-def analyse(
-    inputs: Inputs,
-    out_dir: Path,
+def score_pass(
+    programme: Programme,
+    timings: Sequence[CueTiming],
+    activity: SpeechActivity,
     settings: AnalysisSettings,
     *,
-    style_path: Path | None = None,
     progress: Progress | None = None,
-) -> Analysis:
-    """Run speech detection, alignment and per-cue scoring; return the Analysis record."""
-    progress = progress or no_progress
-    programme, track = open_inputs(inputs)
-    style = load_style(style_path)  # a bad profile fails before the long work
-    activity, loudness = measure(programme, settings, progress=progress)
-    alignment, timings, uncovered = align_cues(track.cues, activity, programme.info, settings, style)
+) -> tuple[CueScore, ...]:
+    """Pass 2: per-cue masking scores over the aligned spans."""
     with contextlib.ExitStack() as stack:
-        # pass 2 on two cores: frame features in a second process, the rest here (same scores)
+        # on two cores: frame features in a second process, the rest here (same scores)
         features = stack.enter_context(feature_worker(programme, activity.frame_s)) if use_workers(programme) else None
-        scores = score_cues(
+        return score_cues(
             iter_programme(programme),
             info=programme.info,
             kind=programme.kind,
@@ -232,6 +228,24 @@ def analyse(
             progress=progress,
             features=features,
         )
+
+
+def analyse(
+    inputs: Inputs,
+    out_dir: Path,
+    settings: AnalysisSettings,
+    *,
+    style_path: Path | None = None,
+    progress: Progress | None = None,
+    score: bool = True,
+) -> Analysis:
+    """Run speech detection, alignment and (unless ``score`` is False) per-cue scoring."""
+    progress = progress or no_progress
+    programme, track = open_inputs(inputs)
+    style = load_style(style_path)  # a bad profile fails before the long work
+    activity, loudness = measure(programme, settings, progress=progress)
+    alignment, timings, uncovered = align_cues(track.cues, activity, programme.info, settings, style)
+    scores = score_pass(programme, timings, activity, settings, progress=progress) if score else ()
     return Analysis(
         schema=SCHEMA_VERSION,
         settings=settings.to_dict(),
@@ -373,24 +387,8 @@ def run_alignment(
 
     The returned plan has no scores, events or scenes; its cues.csv carries the timing columns.
     """
-    programme, track = open_inputs(inputs)
-    style = load_style(style_path)
-    activity, loudness = measure(programme, settings, progress=progress)
-    alignment, timings, uncovered = align_cues(track.cues, activity, programme.info, settings, style)
-    analysis = Analysis(
-        schema=SCHEMA_VERSION,
-        settings=settings.to_dict(),
-        inputs=describe_inputs(inputs, out_dir),
-        audio=programme.info,
-        subtitles=track,
-        loudness=loudness,
-        activity=activity,
-        alignment=alignment,
-        timings=timings,
-        uncovered=uncovered,
-        scores=(),
-        warnings=programme_warnings(loudness, activity, alignment),
-    )
+    analysis = analyse(inputs, out_dir, settings, style_path=style_path, progress=progress, score=False)
+    track, timings, uncovered, alignment = analysis.subtitles, analysis.timings, analysis.uncovered, analysis.alignment
     plan = Plan(schema=SCHEMA_VERSION, settings=PlanSettings().to_dict(), analysis=analysis, events=(), scenes=())
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -402,8 +400,8 @@ def run_alignment(
         "alignment": alignment.to_dict(),
         "timings": [t.to_dict() for t in timings],
         "uncovered": [u.to_dict() for u in uncovered],
-        "speech_source": activity.source,
-        "vad": activity.backend,
+        "speech_source": analysis.activity.source,
+        "vad": analysis.activity.backend,
         "warnings": list(analysis.warnings),
     }
     atomic_write_text(written["alignment"], json.dumps(summary, sort_keys=True, indent=1) + "\n", inputs=guard)
