@@ -23,7 +23,6 @@ from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 import numpy.typing as npt
-from scipy.signal import sosfilt
 
 from planner._typing import FloatArray
 from planner.analysis.bands import BandAnalyzer
@@ -61,6 +60,11 @@ class FrameFeatures:
     """
 
     def __init__(self, sample_rate_hz: int, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
+        # imported here: scipy.signal takes about a second to import, and planning needs
+        # this module's constants only
+        from scipy.signal import sosfilt
+
+        self._sosfilt = sosfilt
         self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
         self._sos = k_weighting_sos(sample_rate_hz)
         self._zi = np.zeros((self._sos.shape[0], 2))
@@ -114,7 +118,7 @@ class FrameFeatures:
     def process(self, x: npt.ArrayLike) -> FloatArray:
         """Feature vectors of the frames completed by this input, shape ``(n_frames, N_FEATURES)``."""
         sig = np.asarray(x, dtype=np.float64)
-        kw, self._zi = sosfilt(self._sos, sig, zi=self._zi)
+        kw, self._zi = self._sosfilt(self._sos, sig, zi=self._zi)
         self._n_seen += sig.size
         squares = np.stack([kw * kw, sig * sig], axis=1)
         self._queue.append(self._frames_from(squares, max(self._complete_frames(), self._next_frame)))

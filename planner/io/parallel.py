@@ -52,9 +52,11 @@ def use_workers(programme: Programme) -> bool:
     return cpus > 1 and programme.info.duration_s >= PARALLEL_MIN_S
 
 
-def _context() -> multiprocessing.context.BaseContext:
+def _context() -> multiprocessing.context.ForkContext | multiprocessing.context.SpawnContext:
     # fork starts a worker without importing anything again (spawn re-imports scipy.signal: ~1 s)
-    return multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
+    if "fork" in multiprocessing.get_all_start_methods():
+        return multiprocessing.get_context("fork")
+    return multiprocessing.get_context("spawn")
 
 
 def speech_source(programme: Programme) -> str:

@@ -18,6 +18,7 @@ the listening level, scoring the render as loud as the original was assumed to p
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import dataclasses
 import io
@@ -31,6 +32,7 @@ from planner.analysis.masking import score_cues
 from planner.errors import PlanFileError
 from planner.io.audio import Programme, iter_programme
 from planner.io.files import atomic_write_text
+from planner.io.parallel import feature_worker, use_workers
 from planner.model import CueScore, GainEvent, Plan, Record
 from planner.planning.gains import STEP_DB, Scorer, analysis_thresholds
 from planner.progress import Progress
@@ -141,10 +143,13 @@ def verify(
     settings = dataclasses.replace(base, listening_level_db_spl=base.listening_level_db_spl - level_gain_db)
     planned = {i for ev in plan.events for i in ev.cue_indices}
     timings = [t for t in plan.analysis.timings if t.index in planned]
-    measured = score_cues(
-        iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
-        activity=plan.analysis.activity, settings=settings, progress=progress,
-    )  # fmt: skip
+    with contextlib.ExitStack() as stack:
+        # frame features in a second process on a long programme (same scores; planner.io.parallel)
+        features = stack.enter_context(feature_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio) else None
+        measured = score_cues(
+            iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
+            activity=plan.analysis.activity, settings=settings, progress=progress, features=features,
+        )  # fmt: skip
     by_index = {s.index: s for s in measured}
     before = {s.index: s for s in plan.analysis.scores}
     thresholds = analysis_thresholds(plan.analysis.settings)
