@@ -6,6 +6,13 @@ line on stderr and exit with code 2; nothing is written. Other project errors ex
 
 from __future__ import annotations
 
+import os
+
+# Small products run faster on one BLAS thread than on threads that wait for each other on
+# a 2-core machine (measured, benchmarks/README.md); set before numpy loads, user values win.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 import contextlib
 import json
 from collections.abc import Callable, Iterator

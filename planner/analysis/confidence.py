@@ -68,10 +68,22 @@ def moving_mean(x: FloatArray, width: int) -> FloatArray:
     """Centred moving mean of ``x`` over ``width`` samples (shrinking at the edges), float64."""
     n = x.size
     c = np.concatenate(([0.0], np.cumsum(x, dtype=np.float64)))
-    i = np.arange(n)
-    lo = np.clip(i - width // 2, 0, n)
-    hi = np.clip(i - width // 2 + width, 0, n)
-    return (c[hi] - c[lo]) / np.maximum(hi - lo, 1)
+    half, ahead = width // 2, width - width // 2
+    # Frame i averages c[min(i + ahead, n)] - c[max(i - half, 0)] over that many frames,
+    # written with slices instead of index arrays: the same sums and divisions in a third of
+    # the memory (these tracks span the whole programme).
+    out = np.empty(n)
+    whole_end = min(max(n - ahead + 1, 0), n)  # frames before this one end their window inside
+    out[:whole_end] = c[ahead : ahead + whole_end]
+    out[whole_end:] = c[n]
+    whole_start = min(half, n)  # frames from this one on start their window inside
+    out[:whole_start] -= c[0]
+    out[whole_start:] -= c[: n - whole_start]
+    if whole_end > whole_start:
+        out[whole_start:whole_end] /= width
+    edge = np.concatenate((np.arange(whole_start), np.arange(max(whole_end, whole_start), n)))
+    out[edge] /= np.maximum(np.minimum(edge + ahead, n) - np.maximum(edge - half, 0), 1)
+    return out
 
 
 def envelope_depth_db(energy_db: FloatArray, *, frame_s: float = ANALYSIS_FRAME_S) -> FloatArray:
