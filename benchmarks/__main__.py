@@ -11,8 +11,7 @@ at a time, and measures each command as a whole process (:mod:`benchmarks.timing
 - ``analyse fast|neural mix|stems``: ``cueplan analyse`` with each speech detector, from
   the mix alone and from the stems;
 - ``plan``: ``cueplan plan`` from the analysis saved by ``analyse fast mix``;
-- ``render stems|mix``: ``cueplan render`` (render, then verify by re-scoring) when the
-  pipeline has ``run_render``, else :mod:`benchmarks.render_plan`;
+- ``render stems|mix``: ``cueplan render`` (render, then verify by re-scoring);
 - ``render-only stems|mix``: :mod:`benchmarks.render_plan`, the render without the verify
   pass (EBU R 128), comparable with runs made before ``cueplan render`` existed.
 
@@ -146,13 +145,7 @@ def _cueplan() -> list[str]:
     return [str(script)] if script.is_file() else [sys.executable, "-m", "planner"]
 
 
-def _has_run_render() -> bool:
-    from planner import pipeline
-
-    return hasattr(pipeline, "run_render")
-
-
-def _argv(command: str, files: ProgrammeFiles, work: Path, cli_render: bool) -> list[str] | None:
+def _argv(command: str, files: ProgrammeFiles, work: Path) -> list[str] | None:
     """The command line of ``command`` on ``files``; None when it cannot run on them."""
     cue, q = _cueplan(), "--quiet"
     mix_dir, stems_dir = work / "analysis-mix", work / "analysis-stems"
@@ -177,7 +170,7 @@ def _argv(command: str, files: ProgrammeFiles, work: Path, cli_render: bool) -> 
             return None  # the rendered WAV would pass 4 GiB, which the writer refuses
         folder = stems_dir if command.endswith("stems") else mix_dir
         out = work / "rendered.wav"
-        if cli_render and not command.startswith("render-only"):
+        if not command.startswith("render-only"):
             return [*cue, "render", str(folder), "--out", str(out), q]
         return [sys.executable, "-m", "benchmarks.render_plan", str(folder), str(out)]
     raise ValueError(command)
@@ -186,7 +179,6 @@ def _argv(command: str, files: ProgrammeFiles, work: Path, cli_render: bool) -> 
 def _bench_programme(
     files: ProgrammeFiles, name: str, commands: list[str], runs: int, gnu_time: bool, work: Path
 ) -> list[Result]:
-    cli_render = _has_run_render()
     # flush the freshly written files to disk and read them once, untimed: otherwise the first
     # command measured competes with the write-back of gigabytes (seen: a 1 s read taking minutes)
     os.sync()
@@ -197,11 +189,11 @@ def _bench_programme(
     # one that is not measured itself is run once, untimed
     order = sorted(commands, key=lambda c: (not c.startswith("analyse fast"), COMMANDS.index(c)))
     for needed in sorted({_NEEDS[c] for c in commands if c in _NEEDS} - set(commands)):
-        subprocess.run(_argv(needed, files, work, cli_render), check=True, env=env, capture_output=True)
+        subprocess.run(_argv(needed, files, work), check=True, env=env, capture_output=True)
     measured: dict[str, list[Run]] = {c: [] for c in order}
     for i in range(runs):
         for command in order:
-            argv = _argv(command, files, work, cli_render)
+            argv = _argv(command, files, work)
             if argv is None:
                 continue
             run = measure(argv, gnu_time=gnu_time, env=env)
@@ -307,7 +299,6 @@ def main() -> None:
         "benchmark": "programme scale (python -m benchmarks)",
         "label": args.label,
         "runs": runs,
-        "render_path": "cueplan render" if _has_run_render() else "benchmarks.render_plan (render only)",
         "timing_tool": "GNU time -v" if gnu_time else "os.wait4",
         "load_average_end": list(os.getloadavg()),
         "machine": {"python": platform.python_version(), "numpy": np.__version__, "cpus": os.cpu_count()},

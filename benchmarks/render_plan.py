@@ -1,10 +1,9 @@
 """Render an analysis folder's plan without verifying: ``python -m benchmarks.render_plan DIR OUT``.
 
-The driver the benchmark uses while ``cueplan render`` cannot yet be called (before
-``planner.pipeline.run_render`` exists): it reads ``DIR/plan.json``, opens the audio the
-plan names and calls :func:`planner.render.renderer.render` with the default
-:class:`~planner.settings.RenderSettings` (EBU R 128), as the command would before its
-verify pass.
+The benchmark's render-only row: it reads ``DIR/plan.json``, opens the audio the plan
+names and calls :func:`planner.render.renderer.render` with the default
+:class:`~planner.settings.RenderSettings` (EBU R 128), as ``cueplan render`` does before
+its verify pass.
 """
 
 from __future__ import annotations
@@ -14,7 +13,7 @@ from pathlib import Path
 
 from planner.io.audio import open_programme
 from planner.io.exports import load_plan
-from planner.pipeline import input_paths
+from planner.folder import input_paths
 from planner.render.renderer import render
 from planner.settings import RenderSettings
 

@@ -121,17 +121,17 @@ def inspect(
 
 def _inputs(files: list[Path], dialogue: Path | None, background: Path | None):  # type: ignore[no-untyped-def]
     """AUDIO SUBS, or SUBS alone with --dialogue and --background."""
-    from planner import pipeline
+    from planner.folder import Inputs
 
     if (dialogue is None) != (background is None):
         raise InputError("stems need both --dialogue FILE and --background FILE; pass both, or a mix as AUDIO")
     if dialogue is not None:
         if len(files) != 1:
             raise InputError(f"with stems give only the subtitle file as argument (got {len(files)}); pass SUBS")
-        return pipeline.Inputs(subtitles=files[0], dialogue=dialogue, background=background)
+        return Inputs(subtitles=files[0], dialogue=dialogue, background=background)
     if len(files) != 2:
         raise InputError(f"expected AUDIO SUBS (got {len(files)} file arguments); pass the mix and the subtitle file")
-    return pipeline.Inputs(subtitles=files[1], mix=files[0])
+    return Inputs(subtitles=files[1], mix=files[0])
 
 
 Files = Annotated[list[Path], typer.Argument(help="AUDIO SUBS (a mix and its subtitles), or SUBS alone with stems.")]
@@ -152,14 +152,15 @@ def align(
     quiet: Quiet = False,
 ) -> None:
     """Align the subtitles to the speech and flag every cue problem (retimed subtitles, cues.csv)."""
-    from planner import pipeline
+    from planner import runs
+    from planner.folder import Inputs
     from planner.report import terminal
 
     with _errors():
         settings = _analysis_settings(vad=vad, fps=fps, drop_frame=df, programme_start=programme_start, audiogram=None)
-        inputs = pipeline.Inputs(subtitles=subtitles, mix=audio)
+        inputs = Inputs(subtitles=subtitles, mix=audio)
         with _progress(quiet) as progress:
-            result = pipeline.run_alignment(inputs, out, settings, style_path=profile, progress=progress)
+            result = runs.run_alignment(inputs, out, settings, style_path=profile, progress=progress)
     terminal.print_alignment_summary(stdout, result.plan.analysis)
     _print_written(result.written)
 
@@ -181,7 +182,7 @@ def analyse(
     quiet: Quiet = False,
 ) -> None:
     """Align, score every cue for masking, plan gain moves, and write the analysis folder."""
-    from planner import pipeline
+    from planner import runs
     from planner.report import terminal
 
     with _errors():
@@ -191,7 +192,7 @@ def analyse(
             audiogram=audiogram, listening_level_db_spl=listening_level,
         )  # fmt: skip
         with _progress(quiet) as progress:
-            result = pipeline.run_analysis(inputs, out, settings, style_path=profile, progress=progress)
+            result = runs.run_analysis(inputs, out, settings, style_path=profile, progress=progress)
     terminal.print_run_summary(stdout, result.plan, result.written)
 
 
@@ -213,7 +214,7 @@ def plan(
     hearing: Annotated[str | None, typer.Option("--hearing", help="Plan for another hearing profile.")] = None,
 ) -> None:
     """Plan again from a saved analysis with other settings (reads no audio; report.html is left as it was)."""
-    from planner import pipeline
+    from planner.folder import replan
     from planner.report import terminal
     from planner.settings import STRENGTH_STEPS, PlanSettings
 
@@ -231,7 +232,7 @@ def plan(
             kwargs.update(target_kind="lu", target_lu=target_lu)
         elif target_sii is not None:
             kwargs.update(target_kind="sii", target_sii=target_sii)
-        result = pipeline.replan(folder, PlanSettings(**kwargs), hearing=hearing)
+        result = replan(folder, PlanSettings(**kwargs), hearing=hearing)
     terminal.print_run_summary(stdout, result.plan, result.written)
 
 
@@ -247,14 +248,14 @@ def render(
     quiet: Quiet = False,
 ) -> None:
     """Render the clearer-dialogue version from the plan, then re-score it (verify.csv)."""
-    from planner import pipeline
+    from planner import runs
     from planner.report import terminal
     from planner.settings import RenderSettings
 
     with _errors():
         settings = RenderSettings(loudness=loudness, true_peak_dbtp=true_peak)
         with _progress(quiet) as progress:
-            result = pipeline.run_render(folder, out, settings, stems_out=stems_out, progress=progress)
+            result = runs.run_render(folder, out, settings, stems_out=stems_out, progress=progress)
     terminal.print_render(stdout, result.render, result.verify)
     _print_written(result.written)
 
@@ -266,12 +267,12 @@ def verify(
     quiet: Quiet = False,
 ) -> None:
     """Re-score every planned cue on rendered audio and write verify.csv."""
-    from planner import pipeline
+    from planner import runs
     from planner.report import terminal
 
     with _errors():
         with _progress(quiet) as progress:
-            report, written = pipeline.run_verify(folder, rendered, progress=progress)
+            report, written = runs.run_verify(folder, rendered, progress=progress)
     terminal.print_verify(stdout, report)
     _print_written(written)
 
@@ -286,14 +287,14 @@ def report(
     html: Annotated[bool, typer.Option("--html", help="Also (re)write report.html in the folder.")] = False,
 ) -> None:
     """The worst scenes ranked, for the subtitle editor, the mixer or the archive producer."""
-    from planner import pipeline
+    from planner import runs
     from planner.report import terminal
 
     with _errors():
         if view not in ("editor", "mixer", "archive"):
             raise InputError(f"--for={view!r} must be one of editor, mixer, archive; pass one of those")
-        loaded = pipeline.load_report_inputs(folder)
-        written = pipeline.write_report_html(folder, loaded) if html else {}
+        loaded = runs.load_report_inputs(folder)
+        written = runs.write_report_html(folder, loaded) if html else {}
     if as_json:
         stdout.print_json(json.dumps(terminal.report_json(loaded.plan, view=view, top=top, verify_rows=loaded.verify)))  # type: ignore[arg-type]
     else:
@@ -309,7 +310,8 @@ def demo(
     quiet: Quiet = False,
 ) -> None:
     """Build the invented demo scenario (mix, stems, subtitles) and run the whole pipeline on it."""
-    from planner import pipeline
+    from planner import pipeline, runs
+    from planner.folder import Inputs
     from planner.demo.scenario import build_demo
     from planner.report import terminal
 
@@ -321,9 +323,9 @@ def demo(
             inspection = pipeline.inspect(files.mix, files.subtitles, progress=progress)
         terminal.print_inspection(stdout, inspection)
         settings = _analysis_settings(vad=vad, audiogram=None)
-        inputs = pipeline.Inputs(subtitles=files.subtitles, mix=files.mix)
+        inputs = Inputs(subtitles=files.subtitles, mix=files.mix)
         with _progress(quiet) as progress:
-            result = pipeline.run_analysis(inputs, out / "analysis", settings, progress=progress)
+            result = runs.run_analysis(inputs, out / "analysis", settings, progress=progress)
     terminal.print_run_summary(stdout, result.plan, result.written)
     terminal.print_report(stdout, result.plan, top=5, view="editor")
     stdout.print(f"report: {result.written.get('report', out / 'analysis' / 'report.html')}")

@@ -144,6 +144,20 @@ def test_plan_refuses_a_hand_edited_positive_cut(episode: dict[str, Path], tmp_p
     assert plan["events"][0]["event_id"] in out and "background_gain_db" in out
 
 
+def test_plan_refuses_an_analysis_without_its_inputs(episode: dict[str, Path], tmp_path: Path) -> None:
+    out_dir = tmp_path / "no-inputs"
+    code, _ = _run("analyse", episode["mix"], episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
+    assert code == 0
+    analysis = json.loads((out_dir / "analysis.json").read_text())
+    analysis["inputs"] = [f for f in analysis["inputs"] if f["role"] != "subtitles"]
+    (out_dir / "analysis.json").write_text(json.dumps(analysis))
+    before = (out_dir / "plan.json").read_bytes()
+    code, out = _run("plan", out_dir, "--strength", "gentle")
+    assert code == 2
+    assert "subtitle" in out and "re-run cueplan analyse" in out
+    assert (out_dir / "plan.json").read_bytes() == before  # nothing written
+
+
 def test_analyse_with_an_audiogram_scores_for_it(episode: dict[str, Path], tmp_path: Path) -> None:
     # Ground truth: a flat 40 dB HL audiogram raises every band threshold by 40 dB, so the
     # SII for it can only be lower than for normal hearing (ANSI S3.5 clause 4.5, D = max(Z, X + T')).

@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from plan_factory import CueSpec, make_analysis
 
-from planner import pipeline
+from planner import folder, runs
 from planner.batch.catalogue import CATALOGUE_VERSION, Catalogue
 from planner.batch.summary import SUMMARY_VERSION
 from planner.demo.synth import synth_programme, write_programme
@@ -59,7 +59,7 @@ def test_csv_columns_are_listed_in_order(heading: str, columns: tuple[str, ...])
 
 def test_analysis_json_keys() -> None:
     # Ground truth: the keys of an analysis.json text written by planner.pipeline.analysis_json.
-    data = json.loads(pipeline.analysis_json(make_analysis([CueSpec(1.0, 3.0, snr_db=0.0)])))
+    data = json.loads(folder.analysis_json(make_analysis([CueSpec(1.0, 3.0, snr_db=0.0)])))
     assert sorted(_first_column(_section("## analysis.json"))) == sorted(data)
     activity = _section("## analysis.json").split("| `activity` |", 1)[1].split("\n", 1)[0]
     for key in data["activity"]:
@@ -70,8 +70,8 @@ def test_alignment_json_keys(tmp_path: Path) -> None:
     # Ground truth: an alignment.json written by `cueplan align`'s pipeline function on a short
     # synthesized programme.
     files = write_programme(synth_programme(n_lines=3, seed=1, snr_db=15.0), tmp_path)
-    inputs = pipeline.Inputs(subtitles=files["subtitles"], mix=files["mix"])
-    pipeline.run_alignment(inputs, tmp_path / "qc", AnalysisSettings(vad="fast"))
+    inputs = folder.Inputs(subtitles=files["subtitles"], mix=files["mix"])
+    runs.run_alignment(inputs, tmp_path / "qc", AnalysisSettings(vad="fast"))
     data = json.loads((tmp_path / "qc" / "alignment.json").read_text(encoding="utf-8"))
     text = _section("## alignment.json")
     assert sorted(_first_column(text)) == sorted(data)

@@ -21,7 +21,6 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Sequence
-from pathlib import Path
 
 import numpy as np
 import pyloudnorm
@@ -31,7 +30,7 @@ from hypothesis import strategies as st
 from plan_factory import NORMAL_SPEECH_DB, CueSpec, brute_force_cut_db, make_analysis, reference_sii
 from speech_intelligibility_index import sii as ref
 
-from planner import pipeline
+from planner import folder, pipeline
 from planner.analysis.bands import LOW_RATE_HZ, BandAnalyzer
 from planner.analysis.masking import score_cues
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz, sii
@@ -135,7 +134,7 @@ def turned_up(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Turned]:
         loud_files = write_programme(loud, tmp_path_factory.mktemp(f"{background}-louder"))
         for kind in ("stems", "mix"):
             roles = {"mix": files["mix"]} if kind == "mix" else {"dialogue": files["dialogue"], "background": files["background"]}
-            inputs = pipeline.Inputs(subtitles=files["subtitles"], **roles)
+            inputs = folder.Inputs(subtitles=files["subtitles"], **roles)
             analysis = pipeline.analyse(inputs, files["subtitles"].parent, settings_)
             loud_roles = {role: loud_files[role] for role in roles}
             programme = open_programme(**loud_roles)

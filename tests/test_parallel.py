@@ -15,7 +15,7 @@ import pytest
 import soundfile as sf
 
 import planner.io.parallel as parallel
-from planner import pipeline
+from planner import folder, pipeline
 from planner.demo.synth import synth_programme, write_programme
 from planner.errors import AudioInputError, CueplanError
 from planner.io.audio import open_programme
@@ -33,8 +33,8 @@ def _analysis_json(files: dict[str, Path], kind: str, vad: str, monkeypatch: pyt
     monkeypatch.setattr(parallel, "PARALLEL_MIN_S", 0.0 if workers else float("inf"))
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
     roles = {"mix": files["mix"]} if kind == "mix" else {"dialogue": files["dialogue"], "background": files["background"]}
-    inputs = pipeline.Inputs(subtitles=files["subtitles"], **roles)
-    return pipeline.analysis_json(pipeline.analyse(inputs, files["subtitles"].parent, AnalysisSettings(vad=vad)))
+    inputs = folder.Inputs(subtitles=files["subtitles"], **roles)
+    return folder.analysis_json(pipeline.analyse(inputs, files["subtitles"].parent, AnalysisSettings(vad=vad)))
 
 
 @pytest.mark.parametrize(("kind", "vad"), [("mix", "fast"), ("stems", "neural")], ids=["mix-fast", "stems-neural"])

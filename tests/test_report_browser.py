@@ -71,7 +71,7 @@ def _hand_built(tmp: Path) -> tuple[Plan, Path]:
 
 
 def _demo(tmp: Path) -> tuple[Plan, Path]:
-    from planner import pipeline
+    from planner import folder, pipeline
     from planner.demo.scenario import build_demo
     from planner.io.audio import open_programme
     from planner.io.subtitles import read_subtitles, write_subtitles
@@ -88,7 +88,7 @@ def _demo(tmp: Path) -> tuple[Plan, Path]:
     track = read_subtitles(files.subtitles)
     cues = tuple(dataclasses.replace(c, text=MARKUP_TEXT) if c.index == line["subtitle_cue"] else c for c in track.cues)
     write_subtitles(files.subtitles, dataclasses.replace(track, cues=cues))
-    inputs = pipeline.Inputs(subtitles=files.subtitles, dialogue=files.dialogue, background=files.background)
+    inputs = folder.Inputs(subtitles=files.subtitles, dialogue=files.dialogue, background=files.background)
     out = tmp / "analysis"
     out.mkdir()
     analysis = pipeline.analyse(inputs, out, AnalysisSettings(vad="fast"))

@@ -16,7 +16,6 @@ from collections.abc import Iterable
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy.signal import sosfilt
 
 from planner._typing import AudioArray, BoolArray, FloatArray
 from planner.analysis.truepeak import TruePeakMeter
@@ -177,6 +176,11 @@ class LoudnessMeter:
         self.sample_rate_hz = sample_rate_hz
         self.layout = layout
         self.n_channels = len(weights)
+        # imported here, as in features.py: scipy.signal takes about a second to import,
+        # and `cueplan plan` reaches this module (through the scoring) without metering
+        from scipy.signal import sosfilt
+
+        self._sosfilt = sosfilt
         self._sos = k_weighting_sos(sample_rate_hz)
         self._metered = [i for i, w in enumerate(weights) if w > 0.0]
         self._weights = np.array([weights[i] for i in self._metered])
@@ -204,7 +208,7 @@ class LoudnessMeter:
             self._work = np.zeros((len(self._metered), block.shape[0]))
         for row, channel in enumerate(self._metered):
             self._work[row] = block[:, channel]
-        y, self._zi = sosfilt(self._sos, self._work, axis=-1, zi=self._zi)
+        y, self._zi = self._sosfilt(self._sos, self._work, axis=-1, zi=self._zi)
         np.square(y, out=y)
         head = 0
         if self._pending.shape[1]:

@@ -29,8 +29,9 @@ from planner.batch.reports import ReportRow, episode_report, triage_report
 from planner.batch.sources import Discovery, EpisodeJob, Unpaired, discover
 from planner.batch.summary import CatalogueCue, EpisodeSummary, canonical_json, settings_fingerprint, summarise
 from planner.errors import CueplanError, SettingsError
+from planner.folder import Inputs
 from planner.io.files import sha256_file
-from planner.pipeline import Inputs, analyse
+from planner.pipeline import analyse
 from planner.planning.scenes import make_plan
 from planner.progress import Progress, no_progress
 from planner.settings import AnalysisSettings, PlanSettings
