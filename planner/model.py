@@ -105,6 +105,8 @@ def _from_plain(tp: Any, value: Any, where: str) -> Any:
             raise PlanFileError(f"expected a list, got {type(value).__name__}", field=where)
         args = get_args(tp)
         if len(args) == 2 and args[1] is Ellipsis:
+            if args[0] is float and all(type(v) is float for v in value):
+                return tuple(value)  # the common case (spectra, tracks), checked at C speed
             return tuple(_from_plain(args[0], v, f"{where}[{i}]") for i, v in enumerate(value))
         return tuple(_from_plain(a, v, f"{where}[{i}]") for i, (a, v) in enumerate(zip(args, value)))
     if origin is dict:

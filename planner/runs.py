@@ -15,7 +15,7 @@ from pathlib import Path
 
 from planner.folder import RunResult, input_paths, relative_path, retimed_track, write_outputs
 from planner.io.audio import Programme, open_programme
-from planner.io.exports import load_plan, plan_json, write_cues_csv
+from planner.io.exports import check_audio, load_plan, plan_json, write_cues_csv
 from planner.io.files import atomic_write_text, refuse_inputs
 from planner.io.subtitles import write_subtitles
 from planner.model import SCHEMA_VERSION, Plan
@@ -134,10 +134,11 @@ class RenderRun:
 
 
 def _plan_and_programme(out_dir: Path) -> tuple[Plan, Inputs, Programme]:
-    plan = load_plan(Path(out_dir) / "plan.json")
+    path = Path(out_dir) / "plan.json"
+    plan = load_plan(path)
     inputs = input_paths(plan.analysis, out_dir)
     roles = {"mix": inputs.mix, "dialogue": inputs.dialogue, "background": inputs.background}
-    plan = load_plan(Path(out_dir) / "plan.json", audio_paths={k: v for k, v in roles.items() if v is not None})
+    check_audio(plan, {k: v for k, v in roles.items() if v is not None}, path)
     programme = open_programme(mix=inputs.mix, dialogue=inputs.dialogue, background=inputs.background)
     return plan, inputs, programme
 

@@ -181,3 +181,63 @@ def test_bad_audiogram_exits_2(episode: dict[str, Path], tmp_path: Path) -> None
     code, out = _run("analyse", episode["mix"], episode["subtitles"], "--out", tmp_path / "o", "--audiogram", audiogram)
     assert code == 2
     assert not (tmp_path / "o").exists()
+
+
+@pytest.fixture(scope="module")
+def analysed_stems(episode: dict[str, Path], tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """An analysis folder of the stems episode (cueplan analyse --vad fast)."""
+    out_dir = tmp_path_factory.mktemp("analysed") / "stems"
+    code, out = _run(
+        "analyse", episode["subtitles"], "--dialogue", episode["dialogue"], "--background", episode["background"],
+        "--out", out_dir, "--vad", "fast", "--quiet",
+    )  # fmt: skip
+    assert code == 0, out
+    return out_dir
+
+
+def test_render_then_verify_then_report(analysed_stems: Path, tmp_path: Path) -> None:
+    import pyloudnorm
+
+    rendered = tmp_path / "clearer.wav"
+    stems = tmp_path / "stems"
+    code, out = _run("render", analysed_stems, "--out", rendered, "--stems-out", stems, "--quiet")
+    assert code == 0, out
+    for path in (rendered, stems / "dialogue.wav", stems / "background.wav", analysed_stems / "render.json",
+                 analysed_stems / "verify.csv", analysed_stems / "report.html"):  # fmt: skip
+        assert path.is_file(), path
+    audio, rate = sf.read(str(rendered))
+    # Reference: pyloudnorm's BS.1770-4 meter; EBU R 128 asks -23 LUFS (the default preset),
+    # and issue 6 asks the output within 0.1 LU of the target.
+    assert pyloudnorm.Meter(rate).integrated_loudness(audio) == pytest.approx(-23.0, abs=0.1)
+    events = json.loads((analysed_stems / "plan.json").read_text())["events"]
+    planned_cues = {c for e in events for c in e["cue_indices"]}
+    assert planned_cues, "the +3 dB music episode is built to need moves"
+    assert {int(r["cue"]) for r in _csv_rows(analysed_stems / "verify.csv")} == planned_cues
+    code, out = _run("verify", analysed_stems, rendered)
+    assert code == 0, out
+    code, out = _run("report", analysed_stems, "--for", "mixer", "--plain")
+    assert code == 0, out
+
+
+def test_render_refuses_to_write_over_an_input(analysed_stems: Path, episode: dict[str, Path]) -> None:
+    before = episode["dialogue"].read_bytes()
+    code, out = _run("render", analysed_stems, "--out", episode["dialogue"], "--quiet")
+    assert code == 2, out
+    assert "Traceback" not in out
+    assert episode["dialogue"].read_bytes() == before
+
+
+def test_render_refuses_audio_that_is_not_the_plans(episode: dict[str, Path], tmp_path: Path) -> None:
+    import shutil
+
+    mix = tmp_path / "mix.wav"
+    shutil.copy(episode["mix"], mix)
+    out_dir = tmp_path / "a"
+    code, out = _run("analyse", mix, episode["subtitles"], "--out", out_dir, "--vad", "fast", "--quiet")
+    assert code == 0, out
+    audio, rate = sf.read(str(mix), dtype="float32")
+    sf.write(str(mix), 0.5 * audio, rate, subtype="PCM_24")  # the file changed after the analysis
+    code, out = _run("render", out_dir, "--out", tmp_path / "r.wav", "--quiet")
+    assert code == 2, out
+    assert "does not match" in out
+    assert not (tmp_path / "r.wav").exists() and not (out_dir / "render.json").exists()

@@ -154,7 +154,7 @@ def load_plan(path: str | Path, *, audio_paths: Mapping[str, Path] | None = None
         raise PlanFileError(bare, path=path, field=field, event_id=exc.event_id) from exc
     _check_events(plan, path)
     if audio_paths:
-        _check_audio(plan, audio_paths, path)
+        check_audio(plan, audio_paths, path)
     return plan
 
 
@@ -203,7 +203,8 @@ def _check_events(plan: Plan, path: Path) -> None:
             )
 
 
-def _check_audio(plan: Plan, audio_paths: Mapping[str, Path], path: Path) -> None:
+def check_audio(plan: Plan, audio_paths: Mapping[str, Path], path: Path) -> None:
+    """Raise PlanFileError unless each audio file (by role) has the SHA-256 the plan records."""
     roles = {f.role: (i, f) for i, f in enumerate(plan.analysis.inputs)}
     for role in sorted(audio_paths):
         given = Path(audio_paths[role])

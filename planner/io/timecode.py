@@ -21,6 +21,7 @@ beyond ``23:59:59:FF`` is an error, so every conversion is invertible.
 
 from __future__ import annotations
 
+import functools
 import math
 import numbers
 import re
@@ -227,6 +228,7 @@ def _exact_seconds(t_s: float | Fraction | int) -> Fraction:
     return Fraction(repr(value))
 
 
+@functools.lru_cache(maxsize=1 << 16)  # exports convert each event's times several times
 def seconds_to_video_frames(t_s: float | Fraction, rate: FrameRate) -> int:
     """Nearest video frame to a time, halves up (``floor(t * fps + 1/2)``, exact).
 
