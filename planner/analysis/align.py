@@ -11,11 +11,13 @@ Method
    speech signal over every offset within ``+/-max_offset_s``. The score of an offset is
    the mean speech signal under the cue frames.
 3. *Fine fit* (:mod:`planner.analysis.onsets`): around the coarse offset (+/-0.4 s, 1 ms
-   steps) the offset maximising the mean onset strength (rise of the probability,
-   smoothed over 20 ms) at the mapped in-points. Ratios too close for the coarse fit to part (1 and
-   1001/1000 over a few minutes: within 80 % of the best coarse score) are decided by the
-   drift of the onsets (:func:`drift_ratio`): of the candidates within three standard
-   errors of the implied ratio the simplest wins (list order), else the nearest.
+   steps) the offset maximising the mean onset vote at the mapped in-points. Ratios too
+   close for the coarse fit to part (1 and 1001/1000 over a few minutes: within 80 % of
+   the best coarse score) each get their own fine fit, and the one whose in-points sit
+   best on the onsets (highest mean vote) wins: the most likely candidate, with no prior
+   for any ratio; only an exact tie goes to the simpler ratio (list order). When the
+   per-cue vote differences to a runner-up are within :data:`RATIO_TIE_SE` standard
+   errors of zero, a note says the runner-up fits nearly as well.
 4. *Edits* (:mod:`planner.analysis.edits`): local offsets per window of cues, dynamic
    programming over the cues with a penalty per break, one fine fit per segment.
 
@@ -49,7 +51,7 @@ from planner.analysis.checks import (
 )
 from planner.analysis.confidence import moving_mean, span_mask, spans_from_notes
 from planner.analysis.edits import break_time_s, coarse_scores, find_segments, span_agreement
-from planner.analysis.onsets import drift_ratio, fine_offset, onset_strength
+from planner.analysis.onsets import FineFit, fine_fit, onset_strength
 from planner.analysis.vad import runs as mask_runs
 from planner.errors import InputError
 from planner.io.timecode import frame_rate
@@ -72,10 +74,12 @@ RATE_CANDIDATES: tuple[tuple[str, Fraction], ...] = (
 LOCAL_MEAN_S = 20.0
 #: Two mappings are distinct when they disagree by at least this much on some cue, seconds.
 DISTINCT_S = 1.0
-#: Ratios within this share of the best coarse score compete on the drift of the onsets.
+#: Ratios within this share of the best coarse score compete on their fine fits.
 RATIO_COARSE_SHARE = 0.8
-#: Ratios within this many standard errors of the drift estimate are not ruled out.
-DRIFT_SE_BOUND = 3.0
+#: A runner-up ratio "fits nearly as well" when the winner's mean per-cue vote lead is
+#: within this many standard errors of zero (about the two-sided 95 % bound of a normal
+#: mean; it only decides whether a note is written, not which ratio is chosen).
+RATIO_TIE_SE = 2.0
 #: Fewest cues the alignment will fit; below, the written times are kept.
 MIN_CUES = 3
 #: Confidence below which a warning is written.
@@ -120,6 +124,44 @@ def _identity(cues: Sequence[Cue], duration_s: float, note: str) -> Alignment:
         rate_name="1",
         notes=(note,),
     )
+
+
+def _choose_ratio(
+    g: FloatArray,
+    starts: FloatArray,
+    scores: dict[str, FloatArray],
+    coarse: dict[str, float],
+    max_lag: int,
+    frame_s: float,
+    notes: list[str],
+) -> str:
+    """Name of the frame-rate ratio whose fine fit puts the in-points best on the onsets.
+
+    Candidates are the ratios within :data:`RATIO_COARSE_SHARE` of the best coarse score;
+    each is fine-fitted from its own coarse offset. Appends a note to ``notes`` when a
+    runner-up is within :data:`RATIO_TIE_SE` standard errors (paired over the cues).
+    """
+    best_coarse = max(coarse.values())
+    contenders = [n for n, _ in RATE_CANDIDATES if coarse[n] >= RATIO_COARSE_SHARE * best_coarse]
+    fits: dict[str, FineFit] = {}
+    for name in contenders:
+        lag_s = (int(np.argmax(scores[name])) - max_lag) * frame_s
+        fits[name] = fine_fit(g, _ratio(name) * starts, lag_s, frame_s)
+    rate_name = max(contenders, key=lambda n: (fits[n].score, -_RATE_ORDER[n]))
+    close = [n for n in contenders if n != rate_name and _near_tie(fits[rate_name].votes, fits[n].votes)]
+    if close:
+        notes.append(
+            f"frame-rate ratio {rate_name} chosen; {', '.join(close)} fit(s) nearly as well on this length of programme "
+            f"(the mappings part by {_spread_ms([rate_name] + close, starts):.0f} ms at most over the cues)"
+        )
+    return rate_name
+
+
+def _near_tie(votes_best: FloatArray, votes_other: FloatArray) -> bool:
+    """Whether the mean per-cue vote lead of the best fit is within :data:`RATIO_TIE_SE` standard errors."""
+    d = votes_best - votes_other
+    se = float(np.std(d, ddof=1)) / np.sqrt(d.size) if d.size > 1 else np.inf
+    return float(np.mean(d)) <= RATIO_TIE_SE * se
 
 
 def align(cues: Sequence[Cue], activity: SpeechActivity, *, max_offset_s: float = 90.0, duration_s: float) -> Alignment:
@@ -181,27 +223,7 @@ def align(cues: Sequence[Cue], activity: SpeechActivity, *, max_offset_s: float 
         scores[name] = sc
         coarse[name] = float(sc.max())
     notes: list[str] = []
-    # Ratio: the coarse fit separates ratios whose drift shows over the programme; between
-    # close ones (1 and 1001/1000 over a few minutes) the drift of the onsets decides.
-    best_name = max(coarse, key=lambda k: (coarse[k], -_RATE_ORDER[k]))
-    r0 = _ratio(best_name)
-    o0, _ = fine_offset(g, r0 * starts, (int(np.argmax(scores[best_name])) - max_lag) * frame_s, frame_s)
-    implied = drift_ratio(g, starts, r0, o0, frame_s)
-    contenders = [n for n, _ in RATE_CANDIDATES if coarse[n] >= RATIO_COARSE_SHARE * coarse[best_name]]
-    rate_name = best_name
-    if implied is not None:
-        r_est, se = implied
-        nearest = min(contenders, key=lambda n: (abs(_ratio(n) - r_est), _RATE_ORDER[n]))
-        # A ratio lower in the list (simpler: 1 before 25/24 before the 1001/1000 family)
-        # keeps the place unless the drift rules it out.
-        plausible = [n for n in contenders if abs(_ratio(n) - r_est) <= DRIFT_SE_BOUND * se]
-        rate_name = min(plausible, key=lambda n: _RATE_ORDER[n]) if plausible else nearest
-        if len(plausible) > 1:
-            others = ", ".join(n for n in plausible if n != rate_name)
-            notes.append(
-                f"frame-rate ratio {rate_name} chosen; {others} fit(s) nearly as well on this length of programme "
-                f"(the mappings part by {_spread_ms(plausible, starts):.0f} ms at most over the cues)"
-            )
+    rate_name = _choose_ratio(g, starts, scores, coarse, max_lag, frame_s, notes)
     ratio = _ratio(rate_name)
 
     # Edits: one offset per segment of cues (planner.analysis.edits), then a fine fit each.
@@ -209,7 +231,7 @@ def align(cues: Sequence[Cue], activity: SpeechActivity, *, max_offset_s: float 
     pieces = find_segments(z, zcum, a_f, b_f, scores[rate_name], max_lag, frame_s=frame_s)
     offsets: list[float] = []
     for first, last, lag in pieces:
-        off, prom = fine_offset(g, ratio * starts[first : last + 1], lag * frame_s, frame_s)
+        off, prom, _, _ = fine_fit(g, ratio * starts[first : last + 1], lag * frame_s, frame_s)
         if prom < 1.5:
             off = lag * frame_s
             notes.append(
