@@ -45,6 +45,8 @@ GLOBAL_CASES = (
 #: Offsets and ratios only "pass" at these SNRs (issue 3 target: +5 dB or better).
 TARGET_SNRS_DB = (20, 10, 5)
 REPORT_CONFIDENCE = 0.5
+#: First seed of the held-out programmes of the checks (the defaults start at 40).
+HELD_OUT_SEED_BASE = 140
 RESULTS = Path(__file__).resolve().parent / "results" / "align.json"
 
 
@@ -139,15 +141,20 @@ def _match(a: tuple[float, float], b: tuple[float, float], min_s: float = 0.5) -
     return min(a[1], b[1]) - max(a[0], b[0]) >= min_s
 
 
-def run_checks(backend: Backend = "neural") -> list[dict]:
-    """Snapping error and no-speech / uncovered-speech precision and recall at +10 dB."""
+def run_checks(backend: Backend = "neural", seed_base: int = 40) -> list[dict]:
+    """Snapping error and no-speech / uncovered-speech precision and recall at +10 dB.
+
+    Seeds ``seed_base`` .. ``seed_base + 3``; the level-evidence bounds of
+    planner.analysis.checks were chosen on the default seeds, so main() also runs a
+    held-out set of seeds to show whether they carry over.
+    """
     style = default_style()
     rows = []
     for bg in BACKGROUNDS:
         counts = {k: [0, 0, 0] for k in ("no_speech", "uncovered", "uncovered_no_crowd")}  # tp, n_found, n_true
         onset_errs: list[float] = []
         for seed in range(4):
-            prog = synth_programme(background=bg, snr_db=10.0, n_lines=14, seed=40 + seed, sample_rate_hz=RATE_HZ,
+            prog = synth_programme(background=bg, snr_db=10.0, n_lines=14, seed=seed_base + seed, sample_rate_hz=RATE_HZ,
                                    layout="mono", gap_s=(0.8, 4.0))
             truth = prog.speech_truth
             gaps = [(truth[i][1] + 0.6, truth[i + 1][0] - 0.4) for i in range(len(truth) - 1)]
@@ -175,7 +182,7 @@ def run_checks(backend: Backend = "neural") -> list[dict]:
                         true = by_text.get(c.text)
                         if true is not None:
                             onset_errs.append(abs(t.aligned_start_s - true.start_s) * 1000)
-        row: dict[str, object] = dict(background=bg, backend=backend, median_onset_error_ms=round(float(np.median(onset_errs)), 1))
+        row: dict[str, object] = dict(background=bg, backend=backend, seeds=f"{seed_base}-{seed_base + 3}", median_onset_error_ms=round(float(np.median(onset_errs)), 1))
         for k, (tp, nf, nt) in counts.items():
             row[f"{k}_precision"] = round(tp / nf, 3) if nf else None
             row[f"{k}_recall"] = round(min(tp, nt) / nt, 3) if nt else None
@@ -231,7 +238,7 @@ def main() -> None:
     f1_rows, speed = run_f1()
     global_rows = run_global()
     edit_rows = run_edits()
-    check_rows = run_checks("neural") + run_checks("fast")
+    check_rows = run_checks("neural") + run_checks("fast") + run_checks("neural", seed_base=HELD_OUT_SEED_BASE)
     target = [r for r in global_rows if r["snr_db"] in TARGET_SNRS_DB]
     summary = dict(
         offset_within_20ms_at_5dB_or_better=all(abs(r["offset_error_ms"]) <= 20 for r in target),
@@ -260,7 +267,7 @@ def main() -> None:
               f"error {r['break_error_s']} s, cues after: max {r['after_max_error_ms']} ms")
     print("checks at +10 dB")
     for r in check_rows:
-        print(f"  {r['background']:6s} {r['backend']:6s} onset median {r['median_onset_error_ms']:5.1f} ms  "
+        print(f"  {r['background']:6s} {r['backend']:6s} seeds {r['seeds']:7s} onset median {r['median_onset_error_ms']:5.1f} ms  "
               f"no-speech P/R {r['no_speech_precision']}/{r['no_speech_recall']}  "
               f"uncovered P/R {r['uncovered_precision']}/{r['uncovered_recall']} "
               f"(without crowd evidence {r['uncovered_no_crowd_precision']}/{r['uncovered_no_crowd_recall']})")

@@ -224,8 +224,11 @@ class SpeechActivity(Record):
     """Speech probability and decision per analysis frame (10 ms) from the start of the audio.
 
     ``probability`` is float32 in 0..1, ``is_speech`` bool, both of shape ``(n_frames,)``.
-    ``source`` says which signal was analysed (e.g. ``"centre channel"``), ``backend``
-    which detector. ``notes`` carries warnings such as a fallback or low confidence.
+    ``level_db``, when the detector measured it, is the detection signal's 200-1000 Hz
+    band power per frame in dB relative to full scale (float32 ``(n_frames,)``; kept in
+    0.5 dB steps from -127.5 to 0 dB). ``source`` says which signal was analysed (e.g.
+    ``"centre channel"``), ``backend`` which detector. ``notes`` carries warnings such as a
+    fallback or low confidence.
     """
 
     frame_s: float
@@ -234,6 +237,7 @@ class SpeechActivity(Record):
     backend: str
     source: str
     notes: tuple[str, ...] = ()
+    level_db: np.ndarray | None = None
 
     @property
     def n_frames(self) -> int:
@@ -247,9 +251,9 @@ class SpeechActivity(Record):
         return [(float(a * self.frame_s), float(b * self.frame_s)) for a, b in zip(edges[::2], edges[1::2])]
 
     def to_dict(self) -> dict[str, Any]:
-        """Segments plus the probability track quantised to 1/255 (base64 uint8)."""
+        """Segments, the probability track quantised to 1/255 and the level track to 0.5 dB (base64 uint8)."""
         q = np.clip(np.round(self.probability.astype(np.float64) * 255.0), 0, 255).astype(np.uint8)
-        return {
+        out = {
             "frame_s": self.frame_s,
             "n_frames": self.n_frames,
             "backend": self.backend,
@@ -258,6 +262,10 @@ class SpeechActivity(Record):
             "segments": [[a, b] for a, b in self.segments()],
             "probability_u8": base64.b64encode(q.tobytes()).decode("ascii"),
         }
+        if self.level_db is not None:
+            level = np.clip(np.round((self.level_db.astype(np.float64) + _LEVEL_FLOOR_DB) * 2.0), 0, 255).astype(np.uint8)
+            out["level_u8"] = base64.b64encode(level.tobytes()).decode("ascii")
+        return out
 
     @classmethod
     def from_dict(cls, data: Any, *, where: str = "") -> SpeechActivity:
@@ -271,21 +279,33 @@ class SpeechActivity(Record):
             mask = np.zeros(n, dtype=bool)
             for a, b in data["segments"]:
                 mask[int(round(a / frame_s)) : int(round(b / frame_s))] = True
-            if "probability_u8" in data:
-                raw = np.frombuffer(base64.b64decode(data["probability_u8"]), dtype=np.uint8)
-                prob = (raw.astype(np.float32) / 255.0).copy()
-            else:
-                prob = mask.astype(np.float32)
+            prob = _track_u8(data, "probability_u8", n, label)
+            level = _track_u8(data, "level_u8", n, label)
             return cls(
                 frame_s=frame_s,
-                probability=prob,
+                probability=mask.astype(np.float32) if prob is None else prob / np.float32(255.0),
                 is_speech=mask,
                 backend=str(data["backend"]),
                 source=str(data["source"]),
                 notes=tuple(data.get("notes", ())),
+                level_db=None if level is None else level / np.float32(2.0) - np.float32(_LEVEL_FLOOR_DB),
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise PlanFileError(f"malformed speech activity ({exc})", field=label) from exc
+
+
+#: Lowest level the stored level track holds, dB below full scale (0.5 dB steps up to 0 dB).
+_LEVEL_FLOOR_DB = 127.5
+
+
+def _track_u8(data: dict[str, Any], key: str, n_frames: int, label: str) -> np.ndarray | None:
+    """The base64 uint8 track ``data[key]`` as float32 ``(n_frames,)``, or None when absent."""
+    if key not in data:
+        return None
+    raw = np.frombuffer(base64.b64decode(data[key]), dtype=np.uint8)
+    if raw.size != n_frames:
+        raise PlanFileError(f"{key} holds {raw.size} frames, not n_frames={n_frames}; re-run cueplan analyse", field=f"{label}.{key}")
+    return raw.astype(np.float32)
 
 
 # --------------------------------------------------------------------------- alignment

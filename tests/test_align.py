@@ -10,6 +10,7 @@ synthesized demo programmes (espeak-ng lines over a background at a known level)
 
 from __future__ import annotations
 
+import dataclasses
 from fractions import Fraction
 
 import numpy as np
@@ -330,10 +331,51 @@ def test_crowd_evidence_lowers_speech_without_cues_in_a_steady_region() -> None:
     _, crowd = time_cues(cues, IDENTITY, act, STYLE)
     assert [(u.start_s, u.end_s) for u in plain] == [(12.0, 15.0)]
     assert crowd == ()
-    # Confident speech (probability 1) in the same region stays, with lower confidence.
+    # Confident speech (probability 1) in the same region near a cue (within 5 s) stays,
+    # with confidence cut by 40 % (planner.analysis.checks CROWD_CUT_NEAR); far from any
+    # cue the 70 % cut leaves 0.3, under the 0.5 needed to be reported.
     loud = activity([(12.0, 15.0)], 30.0, notes=(note,), level=1.0)
-    _, kept = time_cues(cues, IDENTITY, loud, STYLE)
-    assert len(kept) == 1 and kept[0].confidence == pytest.approx(0.3, abs=0.01)
+    near = (Cue(1, "", 18.0, 19.0, "Near."),)
+    _, kept = time_cues(near, IDENTITY, loud, STYLE)
+    assert len(kept) == 1 and kept[0].confidence == pytest.approx(0.6, abs=0.02)
+    _, far = time_cues(cues, IDENTITY, loud, STYLE)
+    assert far == ()
+
+
+def _with_level(act: SpeechActivity, levels_db: list[tuple[float, float, float]]) -> SpeechActivity:
+    """``act`` with a level track: -60 dB everywhere, ``level_db`` over each ``(start_s, end_s, level_db)``."""
+    level = np.full(act.n_frames, -60.0, dtype=np.float32)
+    for a, b, db in levels_db:
+        level[int(round(a * 100)) : int(round(b * 100))] = db
+    return dataclasses.replace(act, level_db=level)
+
+
+@pytest.mark.parametrize(
+    ("below_db", "kept"),
+    # Ground truth constructed here against the documented ramp (planner.analysis.checks
+    # LEVEL_KEEP_DB = 4, LEVEL_DROP_DB = 8): full confidence 2 dB under the cued speech,
+    # 0.75 at 5 dB under; at 7 dB under 0.25, under MIN_REPORT_CONFIDENCE, so not reported.
+    [(2.0, 1.0), (5.0, 0.75), (7.0, None)],
+)
+def test_uncovered_speech_well_below_the_dialogue_level_loses_confidence(below_db: float, kept: float | None) -> None:
+    spans = [(1.0, 3.5), (5.0, 7.0), (10.0, 12.0)]
+    cues = (Cue(1, "", 1.0, 3.8, "Covered."), Cue(2, "", 10.0, 12.3, "Covered too."))
+    act = _with_level(activity(spans, 14.0), [(1.0, 3.5, -20.0), (10.0, 12.0, -20.0), (5.0, 7.0, -20.0 - below_db)])
+    _, uncovered = time_cues(cues, IDENTITY, act, STYLE)
+    _, plain = time_cues(cues, IDENTITY, act, STYLE, use_crowd_evidence=False)
+    assert [(u.start_s, u.end_s) for u in plain] == [(5.0, 7.0)] and plain[0].confidence == pytest.approx(1.0)
+    if kept is None:
+        assert uncovered == ()
+    else:
+        assert [(u.start_s, u.end_s) for u in uncovered] == [(5.0, 7.0)]
+        assert uncovered[0].confidence == pytest.approx(kept, abs=0.01)
+
+
+def test_level_evidence_needs_enough_cued_speech() -> None:
+    # Only 1 s of speech under cues (< LEVEL_MIN_REFERENCE_S = 2 s): no reference level, no cut.
+    act = _with_level(activity([(1.0, 2.0), (5.0, 7.0)], 10.0), [(1.0, 2.0, -20.0), (5.0, 7.0, -40.0)])
+    _, uncovered = time_cues((Cue(1, "", 1.0, 2.3, "Short."),), IDENTITY, act, STYLE)
+    assert len(uncovered) == 1 and uncovered[0].confidence == pytest.approx(1.0)
 
 
 # --- the real detector on a synthesized programme -----------------------------------------

@@ -154,3 +154,25 @@ def test_speech_activity_keeps_segments_and_quantised_probability(rng: np.random
     assert np.array_equal(back.is_speech, mask)
     assert np.max(np.abs(back.probability - prob)) <= 0.5 / 255 + 1e-7
     assert back.segments() == act.segments()
+    assert back.level_db is None  # no level track given, none stored
+
+
+def test_speech_activity_keeps_the_level_track_to_half_a_decibel(rng: np.random.Generator) -> None:
+    # Ground truth: a constructed level track from -140 to +3 dB; stored in 0.5 dB steps
+    # from -127.5 to 0 dB (planner.model.SpeechActivity), so values outside are clipped.
+    level = rng.uniform(-140.0, 3.0, 400).astype(np.float32)
+    mask = np.zeros(400, dtype=bool)
+    act = SpeechActivity(frame_s=0.01, probability=mask.astype(np.float32), is_speech=mask, backend="fast",
+                         source="mono", level_db=level)  # fmt: skip
+    back = SpeechActivity.from_dict(json.loads(json.dumps(act.to_dict())))
+    assert back.level_db is not None
+    assert np.max(np.abs(back.level_db - np.clip(level, -127.5, 0.0))) <= 0.25 + 1e-5
+
+
+def test_speech_activity_refuses_a_track_of_the_wrong_length() -> None:
+    mask = np.zeros(10, dtype=bool)
+    data = SpeechActivity(frame_s=0.01, probability=mask.astype(np.float32), is_speech=mask, backend="fast",
+                          source="mono", level_db=np.zeros(10, np.float32)).to_dict()  # fmt: skip
+    data["n_frames"] = 12
+    with pytest.raises(PlanFileError, match="probability_u8 holds 10 frames"):
+        SpeechActivity.from_dict(data)

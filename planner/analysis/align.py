@@ -422,6 +422,11 @@ def time_cues(
         )
     timings.sort(key=lambda t: t.index)
     uncovered = uncovered_speech(
-        speech, activity.probability, aligned, steady if use_crowd_evidence else None, frame_s=frame_s
+        speech,
+        activity.probability,
+        aligned,
+        steady if use_crowd_evidence else None,
+        level_db=activity.level_db if use_crowd_evidence else None,
+        frame_s=frame_s,
     )
     return tuple(timings), uncovered

@@ -66,6 +66,21 @@ CROWD_HANGOVER = Hangover(threshold=0.9, release=0.75)
 CROWD_CUT_NEAR = 0.4
 CROWD_CUT_FAR = 0.7
 NEAR_CUE_S = 5.0
+#: Level evidence. Dialogue is mixed to a steady level through a programme while crowd
+#: and walla sit under it (common practice in dialogue mixing), so uncovered speech whose
+#: loud frames (90th percentile of the detector's 200-1000 Hz band level) lie well below
+#: those of the speech under the cues is likely background. Confidence is kept in full
+#: down to :data:`LEVEL_KEEP_DB` below the cued speech and falls linearly to 0 at
+#: :data:`LEVEL_DROP_DB` below. Measured on benchmarks/bench_align.py's programmes: runs of
+#: dropped dialogue lines sit -3.9..+1.3 dB from the cued speech (babble at +5 dB to pink
+#: at +20 dB), crowd-only runs -5.0..-11.3 dB; the two bounds were chosen between those, so
+#: they are fitted to synthetic programmes.
+LEVEL_KEEP_DB = 4.0
+LEVEL_DROP_DB = 8.0
+#: Least cued speech needed for a reference level, seconds.
+LEVEL_MIN_REFERENCE_S = 2.0
+#: Runs below this confidence are left out of the report as likely background (even odds).
+MIN_REPORT_CONFIDENCE = 0.5
 
 # Markup that is not read: HTML-like tags (<i>, <font ...>, WebVTT <c.x>, <v Name>) and
 # brace override codes ({\an8}) common in SRT files.
@@ -256,19 +271,31 @@ def dialogue_mask(activity: SpeechActivity, steady: BoolArray | None) -> BoolArr
     return np.where(steady, strict, activity.is_speech)
 
 
+def _level_factor(level_db: FloatArray, run_frames: BoolArray, reference_db: float | None) -> float:
+    """Share of confidence kept for a run by its level against the cued speech (see :data:`LEVEL_KEEP_DB`)."""
+    if reference_db is None or not run_frames.any():
+        return 1.0
+    below_db = reference_db - float(np.percentile(level_db[run_frames], 90))
+    return float(np.clip((LEVEL_DROP_DB - below_db) / (LEVEL_DROP_DB - LEVEL_KEEP_DB), 0.0, 1.0))
+
+
 def uncovered_speech(
     speech: BoolArray,
     probability: FloatArray,
     spans_s: np.ndarray,
     steady: BoolArray | None,
     *,
+    level_db: FloatArray | None = None,
     frame_s: float = ANALYSIS_FRAME_S,
 ) -> tuple[UncoveredSpeech, ...]:
     """Runs with at least :data:`MIN_UNCOVERED_S` of ``speech`` outside every cue span.
 
     ``spans_s``: aligned cue spans ``(n, 2)`` in seconds. Confidence: the mean speech
     probability over the run's speech frames, cut inside ``steady`` frames as described at
-    :data:`CROWD_CUT_NEAR` (no cut when ``steady`` is None).
+    :data:`CROWD_CUT_NEAR` (no cut when ``steady`` is None), and by the run's level against
+    the cued speech as described at :data:`LEVEL_KEEP_DB` (when ``level_db``, dB per frame,
+    is given and the cues cover at least :data:`LEVEL_MIN_REFERENCE_S` of speech). Runs of
+    confidence under :data:`MIN_REPORT_CONFIDENCE` are left out.
     """
     n = speech.size
     covered = np.zeros(n + 1, dtype=np.int32)
@@ -279,6 +306,10 @@ def uncovered_speech(
         np.add.at(covered, np.maximum(fb, fa), -1)
     is_covered = np.cumsum(covered[:-1]) > 0
     free = speech & ~is_covered
+    cued = speech & is_covered
+    reference_db = None
+    if level_db is not None and float(np.sum(cued)) * frame_s >= LEVEL_MIN_REFERENCE_S:
+        reference_db = float(np.percentile(level_db[cued], 90))
     starts, ends = runs(fill_short_gaps(free, int(round(UNCOVERED_BRIDGE_S / frame_s))) & ~is_covered)
     out = []
     for s, e in zip(starts, ends):
@@ -290,6 +321,10 @@ def uncovered_speech(
             t0, t1 = s * frame_s, e * frame_s
             near = spans_s.size > 0 and bool(np.any((spans_s[:, 1] > t0 - NEAR_CUE_S) & (spans_s[:, 0] < t1 + NEAR_CUE_S)))
             conf *= 1.0 - share * (CROWD_CUT_NEAR if near else CROWD_CUT_FAR)
+        if level_db is not None:
+            conf *= _level_factor(level_db[s:e], free[s:e], reference_db)
+        if conf < MIN_REPORT_CONFIDENCE:
+            continue
         out.append(
             UncoveredSpeech(start_s=round(float(s * frame_s), 3), end_s=round(float(e * frame_s), 3), confidence=round(conf, 3))
         )

@@ -291,6 +291,7 @@ class SpeechDetector:
             backend=self._scorer.name,
             source=self._source,
             notes=notes,
+            level_db=energy_db,
         )
 
 
