@@ -248,6 +248,11 @@ def main() -> None:
         neural_beats_fast_music_and_pink_0dB=all(
             r["f1_neural"] > r["f1_fast"] for r in f1_rows if r["background"] == "music" or (r["background"] == "pink" and r["snr_db"] == 0)
         ),
+        checks_at_10dB_neural_at_least_0_9=all(
+            (r[k] or 0.0) >= 0.9
+            for r in check_rows if r["backend"] == "neural"
+            for k in ("no_speech_precision", "no_speech_recall", "uncovered_precision", "uncovered_recall")
+        ),
         runtime_s=round(time.perf_counter() - t0, 1),
     )
     result = dict(frame_f1=f1_rows, vad_speed=speed, global_fit=global_rows, edits=edit_rows, checks=check_rows, summary=summary)

@@ -110,14 +110,15 @@ def test_minimum_statistics_follows_a_rising_floor(rng: np.random.Generator) -> 
 
 def _stereo_evidence(speech: np.ndarray, noise_per_channel: np.ndarray, *, n_context: int, tracked_error_db: float = 0.0) -> MixEvidence:
     """Exact stereo evidence: speech equal in L and R, an uncorrelated background of power
-    ``noise_per_channel`` in each; listener sum L^2 + R^2 = 2 (mid^2 + side^2)."""
+    ``noise_per_channel`` in each; listener sum L^2 + R^2 = 2 (mid^2 + side^2). The tracker
+    follows the mid, so its exact output is the mid's background ``noise_per_channel / 2``."""
     mid, side = speech + noise_per_channel / 2, noise_per_channel / 2
     heard_noise = 2 * noise_per_channel
-    ctx = ContextMeans(n=n_context, total=heard_noise, tracked=heard_noise, mixed=noise_per_channel / 2, clean=side)
+    ctx = ContextMeans(n=n_context, total=heard_noise, tracked=side, mixed=noise_per_channel / 2, clean=side)
     return MixEvidence(
         spatial="mid-side",
         total=2 * (mid + side),
-        tracked=heard_noise * 10 ** (tracked_error_db / 10),
+        tracked=side * 10 ** (tracked_error_db / 10),
         speech_probability=1.0,
         before=ctx if n_context else None,
         after=ctx if n_context else None,
@@ -150,13 +151,45 @@ def test_disagreeing_estimators_lower_the_confidence(rng: np.random.Generator) -
 def test_mono_mix_has_no_spatial_estimator_and_says_so() -> None:
     speech, noise = np.full(N_FEATURES, 1e-4), np.full(N_FEATURES, 1e-4)
     stereo = _stereo_evidence(speech, noise, n_context=200)
-    mono = MixEvidence(spatial="none", total=stereo.total, tracked=stereo.tracked, speech_probability=1.0,
-                       before=stereo.before, after=stereo.after)  # fmt: skip
+    # Mono: the tracker follows the listener power, so its exact output is the heard background.
+    ctx = ContextMeans(n=200, total=2 * noise, tracked=2 * noise)
+    mono = MixEvidence(spatial="none", total=stereo.total, tracked=2 * noise, speech_probability=1.0,
+                       before=ctx, after=ctx)  # fmt: skip
     est = estimate_mix(mono)
     assert "spatial" not in est.estimators
     assert any(note.startswith("mono mix") for note in est.notes)
     assert est.confidence < estimate_mix(stereo).confidence
     np.testing.assert_allclose(est.background, 2 * noise, rtol=1e-9)  # tracker and context are exact here
+
+
+def _disagreeing_cue(rng: np.random.Generator, spread: float) -> tuple[MixEvidence, np.ndarray]:
+    """A stereo cue whose three background estimates are each off by a random factor.
+
+    Ground truth the test constructs: speech and side powers 1e-4 per feature and the mid's
+    background equal to the side's, so the heard background is ``4 x side``. The tracker's
+    output, the context ratio r and the context power are chosen so that each estimator's
+    background is the truth times ``exp(eps)``, eps normal (standard deviation ``spread``,
+    clipped at -0.6 so that every hidden part stays positive): unbiased in the log domain.
+    """
+    side = np.full(N_FEATURES, 1e-4)
+    truth = 4 * side
+    e_tracker, e_spatial, e_context = (np.exp(np.maximum(rng.normal(0.0, spread, N_FEATURES), -0.6)) for _ in range(3))
+    # tracker: 2 hidden + 2 side = truth e; spatial: side (2 r + 2) = truth e; context: truth e.
+    ctx = ContextMeans(n=200, total=truth * e_context, tracked=side, mixed=side * (2 * e_spatial - 1), clean=side)
+    ev = MixEvidence(spatial="mid-side", total=2 * (1e-4 + 2 * side), tracked=side * (2 * e_tracker - 1),
+                     speech_probability=1.0, before=ctx, after=ctx, mixed=1e-4 + side, clean=side)  # fmt: skip
+    return ev, truth
+
+
+def test_estimators_that_disagree_are_combined_with_little_bias(rng: np.random.Generator) -> None:
+    # Ground truth: _disagreeing_cue. The spatial and tracker estimates infer only the hidden
+    # part, so their error in power grows with their own value: weighed at their own values,
+    # the lower estimates count more and the combination reads low (-0.35 dB mean here when
+    # this test was written); weighed at the combined value, -0.17 dB (what remains is the
+    # weights' dependence on the combined value itself).
+    cues = [_disagreeing_cue(rng, 0.4) for _ in range(400)]
+    errors_db = [10 * np.log10(estimate_mix(ev).background / truth) for ev, truth in cues]
+    assert float(np.mean(errors_db)) > -0.25
 
 
 def test_wada_alone_moves_the_broadband_background() -> None:

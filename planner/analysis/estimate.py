@@ -7,9 +7,12 @@ rest of the measured power ``T`` over the cue's speech frames:
 
 ``tracker``
     Minimum statistics (Martin 2001, :mod:`planner.analysis.minstats`) run through the whole
-    programme on the listener power; its mean over the cue's speech frames. Where the cue has
-    speech-free context, the tracker's own bias for this background (its mean over the context
-    frames against the context's measured power) is divided out.
+    programme; its mean over the cue's speech frames. Mono and 5.1: on the listener power.
+    Stereo mid/side (also the 5.1 fold-down): on the dialogue-carrying mid ``M`` only, since
+    that part's background is the one hidden under the dialogue while the side ``C`` is
+    measured: ``N = a tracked + b C`` (:func:`tracked_view` says why not on a 5.1 centre). Where the cue has speech-free context, the tracker's own
+    bias for this background (its mean over the context frames against the context's measured
+    power of what it follows) is divided out.
 ``context``
     The mean listener power over the speech-free frames in and around the cue (up to
     :data:`CONTEXT_S` either side of the span).
@@ -29,11 +32,17 @@ rest of the measured power ``T`` over the cue's speech frames:
 
 Combination: each estimate ``N_e`` comes with an uncertainty ``u_e`` in power units, the
 relative error ``d_e`` times the power the estimator has to infer rather than measure: all
-of ``N_e`` for the tracker and the context, only the part ``a r C`` hidden under the dialogue
-for the spatial estimate. ``ln N = sum(ln N_e / e_e^2) / sum(1 / e_e^2)`` with ``e_e = u_e /
-N_e`` (inverse-variance weighting of log-normal errors; the spatial estimate, which infers
-only the part of the background hidden under the dialogue, keeps the speech ``T - N``
-accurate when it is small against the background). Relative errors, our choice: tracker 0.25 (0.55 uncalibrated), context and
+of it for the context and the tracker of the listener power, only the part hidden under the
+dialogue (``N - b C``) for the spatial estimate and the tracker of the mid, plus 0.03 of the
+measured ``b C``. ``ln N = sum(ln N_e / e_e^2) / sum(1 / e_e^2)`` with ``e_e = u_e(N) / N``
+(inverse-variance weighting of log-normal errors; an estimate that infers only the hidden
+part keeps the speech ``T - N`` accurate when it is small against the background). The
+errors are evaluated at the combined ``N``, iterated from an equal-weight start, not at each
+estimate's own value: an error that grows with the estimate's own hidden part would give the
+lower estimates the larger weights and read the background low, hence the speech and the
+SII high, most where the estimators disagree (a tonal bed whose centre/side ratio moves from
+chord to chord); this is the variance function evaluated at the fitted mean of iteratively
+reweighted least squares (McCullagh and Nelder 1989). Relative errors, our choice: tracker 0.25 (0.55 uncalibrated), context and
 spatial 0.1, each plus half the log-ratio of what it relies on between the speech-free
 frames before and after the cue (tracker: its calibration; context: the power; spatial: the
 ratio ``r``; 0.3 when only one side has context, the tracker excepted), plus 0.3 x the
@@ -56,6 +65,8 @@ Avendano, C. and Jot, J.-M. (2004), "A frequency-domain approach to multichannel
 J. Audio Eng. Soc. 52(7/8), 740-749.
 Kim, C. and Stern, R. M. (2008), Proc. Interspeech 2008, 2598-2601.
 Huber, P. J. (1964), "Robust estimation of a location parameter", Ann. Math. Statist. 35(1), 73-101.
+McCullagh, P. and Nelder, J. A. (1989), Generalized Linear Models, 2nd ed., Chapman and Hall,
+section 2.5 (iteratively reweighted least squares).
 """
 
 from __future__ import annotations
@@ -88,6 +99,8 @@ _D_WADA = 0.5
 #: Deviation (in relative errors) beyond which an estimate is down-weighted (Huber 1964: 1.345-2).
 HUBER_K = 2.0
 _HUBER_STEPS = 4
+#: Reweighting steps of the combination: errors at the combined value first, then Huber's too.
+_COMBINE_STEPS = 8
 #: Spread of the estimators' speech-to-background ratios that halves the confidence, dB.
 AGREEMENT_SD_DB = 3.0
 #: Confidence factor for a mono mix, which has no spatial estimator.
@@ -101,6 +114,18 @@ FLOOR_FACTOR = 0.3
 # several times the side's power in the mid; film mixes keep the centre about 10 dB under.
 _STRUCTURE = {"mid-side": (2.0, 2.0, 1.0, 1.0), "centre-others": (1.0, 1.0, 0.0, 0.1)}
 _TINY = 1e-20
+
+
+def tracked_view(spatial: Spatial) -> Literal["mixed", "total"]:
+    """What the noise tracker follows: the dialogue-carrying mid of a stereo (mid/side) mix,
+    else the listener power.
+
+    In a stereo mix the mid carries half the background, whose level is what is hidden under
+    the dialogue. A 5.1 centre holds little background (film practice, about 10 dB under the
+    others; the ratio assumed 0 in ``_STRUCTURE``): a tracker on it would follow mostly the
+    dialogue's own minima, so there it follows the listener power, background-dominated.
+    """
+    return "mixed" if spatial == "mid-side" else "total"
 
 
 @dataclass(frozen=True, eq=False)
@@ -124,8 +149,9 @@ class MixEvidence:
 
     ``total``, ``tracked``, ``mixed`` and ``clean`` are mean powers ``(N_FEATURES,)`` re full
     scale over the cue's speech frames (listener sum, tracker output, the dialogue-carrying
-    and the speech-free parts of ``spatial``); ``before`` / ``after`` the same over the
-    speech-free frames before and after the span's middle (``None`` if there are none).
+    and the speech-free parts of ``spatial``; the tracker follows :func:`tracked_view`);
+    ``before`` / ``after`` the same over the speech-free frames before and after the span's
+    middle (``None`` if there are none).
     ``wada_speech_flat`` is the listener's flat speech power that the WADA-SNR of the
     detection signal implies; ``speech_probability`` the mean over the speech frames.
     """
@@ -181,12 +207,72 @@ def _side_discrepancy(values: Sequence[FloatArray]) -> FloatArray | float:
     return 0.5 * np.abs(np.log(np.maximum(values[0], _TINY) / np.maximum(values[1], _TINY)))
 
 
-def _estimates(ev: MixEvidence) -> list[tuple[str, FloatArray, FloatArray]]:
-    """``(name, N_e, e_e)`` for every estimator that applies: background power, relative error."""
+@dataclass(frozen=True, eq=False)
+class _Estimate:
+    """One estimator's background ``value`` and its error model, arrays ``(n_features,)``.
+
+    ``measured`` is the part of ``value`` read directly (the speech-free part ``b C``, error
+    :data:`_D_MEASURED`); the rest is inferred with relative error ``d`` plus an absolute
+    error ``floor`` (an assumed ratio's own uncertainty). :meth:`relative_error` evaluates the
+    power uncertainty at a given background, not at the estimate's own value.
+    """
+
+    name: str
+    value: FloatArray
+    d: FloatArray
+    measured: FloatArray | float = 0.0
+    floor: FloatArray | float = 0.0
+
+    def relative_error(self, at: FloatArray) -> FloatArray:
+        """``u_e / N`` at background ``N``: ``(d max(N - measured, 0) + 0.03 measured + floor) / N``."""
+        inferred = np.maximum(at - self.measured, 0.0)
+        u = self.d * inferred + _D_MEASURED * self.measured + self.floor
+        return np.maximum(u / np.maximum(at, _TINY), 1e-6)
+
+    def part(self, index: slice) -> _Estimate:
+        """The same estimate restricted to some features."""
+
+        def cut(x: FloatArray | float) -> FloatArray | float:
+            return x[index] if isinstance(x, np.ndarray) else x
+
+        return _Estimate(self.name, self.value[index], self.d[index], cut(self.measured), cut(self.floor))
+
+
+def _tracker_estimate(
+    ev: MixEvidence, full: Sequence[ContextMeans], tracked_ctx: FloatArray | None, extra: FloatArray | float
+) -> _Estimate:
+    """The minimum-statistics estimate.
+
+    Mono and 5.1: the tracker follows the listener power, ``N = tracked``. Stereo
+    (:func:`tracked_view`): it follows only the mid ``M`` (its background is what is hidden),
+    and the side ``C`` is measured: ``N = a tracked + b C``, the relative error applying to
+    ``a tracked`` only. Calibrated by the context ratio ``field / tracked`` where context exists.
+    """
+    field = tracked_view(ev.spatial)
+    spatial = field == "mixed" and ev.mixed is not None and ev.clean is not None
+    measured_ctx = _pooled(full, field)
+    hidden: FloatArray
+    d: FloatArray | float
+    if measured_ctx is not None and tracked_ctx is not None:
+        hidden = ev.tracked * measured_ctx / np.maximum(tracked_ctx, _TINY)
+        # A calibration that differs between the two sides means a background changing level.
+        bias: list[FloatArray] = [getattr(c, field) / np.maximum(c.tracked, _TINY) for c in full]
+        d = _D_TRACKER + (_side_discrepancy(bias) if len(bias) == 2 else 0.0) + extra
+    else:
+        hidden, d = ev.tracked, _D_TRACKER_RAW
+    d_hidden = np.broadcast_to(d, hidden.shape).astype(np.float64)
+    if not spatial or ev.clean is None:
+        return _Estimate("tracker", hidden, d_hidden)
+    a, b, _, _ = _STRUCTURE[ev.spatial]
+    return _Estimate("tracker", a * hidden + b * ev.clean, d_hidden, measured=b * ev.clean)
+
+
+def _estimates(ev: MixEvidence) -> list[_Estimate]:
+    """Every estimator that applies, with its error model."""
     sides = _sides(ev)
     full = [c for c in sides if c.n >= MIN_SIDE_FRAMES]
     short = _D_SHORT * max(0.0, 1.0 - ev.n_context / CONTEXT_FULL_FRAMES)
-    out: list[tuple[str, FloatArray, FloatArray]] = []
+    out: list[_Estimate] = []
     context = _pooled(sides, "total")
     tracked_ctx = _pooled(full, "tracked")
     # Where the speech-free part is measured during the cue too, its change since the
@@ -196,55 +282,58 @@ def _estimates(ev: MixEvidence) -> list[tuple[str, FloatArray, FloatArray]]:
     stale: FloatArray | float = 0.0
     if ev.spatial != "none" and ev.clean is not None and clean_ctx is not None:
         stale = np.abs(np.log(np.maximum(ev.clean, _TINY) / np.maximum(clean_ctx, _TINY)))
-    total_ctx = _pooled(full, "total")
-    if total_ctx is not None and tracked_ctx is not None:
-        calibrated = ev.tracked * total_ctx / np.maximum(tracked_ctx, _TINY)
-        # A calibration that differs between the two sides means a background changing level.
-        bias: list[FloatArray] = [c.total / np.maximum(c.tracked, _TINY) for c in full]
-        d = _D_TRACKER + (_side_discrepancy(bias) if len(bias) == 2 else 0.0) + short + stale
-        out.append(("tracker", calibrated, np.broadcast_to(d, calibrated.shape).astype(np.float64)))
-    else:
-        out.append(("tracker", ev.tracked, np.full_like(ev.tracked, _D_TRACKER_RAW)))
+    out.append(_tracker_estimate(ev, full, tracked_ctx, short + stale))
     if context is not None:
         levels: list[FloatArray] = [c.total for c in full]
         d = _D_BASE + _side_discrepancy(levels) + short + stale
-        out.append(("context", context, np.broadcast_to(d, context.shape).astype(np.float64)))
+        out.append(_Estimate("context", context, np.broadcast_to(d, context.shape).astype(np.float64)))
     if ev.spatial != "none" and ev.mixed is not None and ev.clean is not None:
         a, b, r_assumed, r_unknown = _STRUCTURE[ev.spatial]
         ratios: list[FloatArray] = [
             c.mixed / np.maximum(c.clean, _TINY) for c in full if c.mixed is not None and c.clean is not None
         ]
         mixed_ctx = _pooled(full, "mixed")
+        floor: FloatArray | float = 0.0
         if ratios and mixed_ctx is not None and clean_ctx is not None:
             r = mixed_ctx / np.maximum(clean_ctx, _TINY)
-            hidden = a * r * (_D_BASE + _side_discrepancy(ratios) + short)
+            d = _D_BASE + _side_discrepancy(ratios) + short
         else:
             r = np.full_like(ev.clean, r_assumed)
-            hidden = a * (_D_BASE * r + r_unknown)
-        # Relative to the whole background C (a r + b): only the hidden part is inferred.
-        out.append(("spatial", ev.clean * (a * r + b), (hidden + _D_MEASURED * b) / (a * r + b)))
+            d, floor = _D_BASE, a * r_unknown * ev.clean
+        # Only the hidden part a r C is inferred; b C is measured.
+        d_arr = np.broadcast_to(d, ev.clean.shape).astype(np.float64)
+        out.append(_Estimate("spatial", ev.clean * (a * r + b), d_arr, measured=b * ev.clean, floor=floor))
     return out
 
 
-def _combine(estimates: list[tuple[str, FloatArray, FloatArray]]) -> FloatArray:
+def _combine(estimates: Sequence[_Estimate]) -> tuple[FloatArray, FloatArray]:
     """Weighted mean of the estimates' logarithms, with outlying estimates down-weighted.
 
     Each estimate's error is taken as log-normal with its relative error as standard
     deviation, so the maximum-likelihood combination is the inverse-variance mean of the
-    logarithms; weights depend on the errors only, never on the values. An estimate more than
-    :data:`HUBER_K` of its errors from the mean has its weight scaled by ``(HUBER_K / z)^2``
-    (Huber's M-estimator, a few reweighting steps), so a context spoilt by a level change the
-    estimator cannot see does not drag the others.
+    logarithms. Where an error depends on the power it is about (the inferred part of the
+    spatial estimate), it is evaluated at the combined background, not at the estimate's own
+    value, re-evaluated in each step from an equal-weight start: weighting by errors taken at
+    each estimate's own value would favour the lower estimates and bias the background low
+    (the variance function evaluated at the fitted mean, as in iteratively reweighted least
+    squares, McCullagh and Nelder 1989). An estimate more than :data:`HUBER_K` of its errors
+    from the mean has its weight scaled by ``(HUBER_K / z)^2`` (Huber's M-estimator), so a
+    context spoilt by a level change the estimator cannot see does not drag the others.
+
+    Returns the combined background and each estimate's relative error ``(n_estimates,
+    n_features)`` at it.
     """
-    logs = np.stack([np.log(np.maximum(n, _TINY)) for _, n, _ in estimates])
-    rel = np.stack([np.maximum(e, 1e-6) for _, _, e in estimates])
-    base = 1.0 / rel**2
-    mean = (base * logs).sum(axis=0) / base.sum(axis=0)
-    for _ in range(_HUBER_STEPS):
-        z = np.abs(logs - mean) / rel
-        weights = base * np.minimum(1.0, (HUBER_K / np.maximum(z, 1e-12)) ** 2)
+    logs = np.stack([np.log(np.maximum(e.value, _TINY)) for e in estimates])
+    mean = logs.mean(axis=0)
+    for step in range(_COMBINE_STEPS):
+        rel = np.stack([e.relative_error(np.exp(mean)) for e in estimates])
+        weights = 1.0 / rel**2
+        if step >= _COMBINE_STEPS - _HUBER_STEPS:
+            z = np.abs(logs - mean) / rel
+            weights *= np.minimum(1.0, (HUBER_K / np.maximum(z, 1e-12)) ** 2)
         mean = (weights * logs).sum(axis=0) / weights.sum(axis=0)
-    return np.exp(mean)
+    background = np.exp(mean)
+    return background, np.stack([e.relative_error(background) for e in estimates])
 
 
 def _snr_db(total: float, background: float) -> float:
@@ -266,12 +355,13 @@ def estimate_mix(ev: MixEvidence) -> MixEstimate:
         Speech and background powers per feature, confidence 0..1 and notes.
     """
     estimates = _estimates(ev)
-    background = _combine(estimates)
-    names = [name for name, _, _ in estimates]
+    background, errors = _combine(estimates)
+    names = [e.name for e in estimates]
     if ev.wada_speech_flat is not None and ev.total[FLAT] > ev.wada_speech_flat:
         wada_flat = ev.total[FLAT] - ev.wada_speech_flat
-        flat = [(n, v[FLAT : FLAT + 1], u[FLAT : FLAT + 1]) for n, v, u in estimates]
-        with_wada = _combine([*flat, ("wada", np.array([wada_flat]), np.array([_D_WADA]))])
+        flat = [e.part(slice(FLAT, FLAT + 1)) for e in estimates]
+        wada = _Estimate("wada", np.array([wada_flat]), np.array([_D_WADA]))
+        with_wada, _ = _combine([*flat, wada])
         background = background * float(with_wada[0] / max(background[FLAT], _TINY))
         names.append("wada")
     floor = ev.total * 10.0 ** (SPEECH_FLOOR_DB / 10.0)
@@ -279,9 +369,9 @@ def estimate_mix(ev: MixEvidence) -> MixEstimate:
     speech = ev.total - background
 
     # Agreement: weighted spread of the estimators' speech-to-background ratios at K.
-    weights = np.array([1.0 / max(e[K], 1e-6) ** 2 for _, _, e in estimates])
+    weights = 1.0 / errors[:, K] ** 2
     weights /= weights.sum()
-    ratios = np.array([_snr_db(ev.total[K], n[K]) for _, n, _ in estimates])
+    ratios = np.array([_snr_db(ev.total[K], e.value[K]) for e in estimates])
     combined = _snr_db(ev.total[K], background[K])
     spread = float(np.sqrt((weights * (ratios - combined) ** 2).sum()))
     agreement = 1.0 / (1.0 + (spread / AGREEMENT_SD_DB) ** 2)

@@ -46,7 +46,7 @@ from planner.analysis.cuepass import (
     frame_start,
     listener_mono,
 )
-from planner.analysis.estimate import CONTEXT_S, Spatial, estimate_mix
+from planner.analysis.estimate import CONTEXT_S, Spatial, estimate_mix, tracked_view
 from planner.analysis.features import FLAT, N_FEATURES, ProgrammeFeatures
 from planner.analysis.minstats import MinimumStatistics
 from planner.analysis.scoring import (
@@ -92,6 +92,9 @@ class _ScoringPass:
         self.hearing_name, self.thresholds = analysis_thresholds(settings)
         self.windows = TrailingMean(esii_frames(self.frame_s))
         self.spatial = kind == "mix" and info.layout != "mono"
+        self.structure: Spatial = (
+            "none" if not self.spatial else ("mid-side" if info.layout == "stereo" else "centre-others")
+        )
         n_tracked = N_FEATURES * (2 if info.layout == "5.1" else 1)
         self.tracker = MinimumStatistics(n_tracked, frame_s=self.frame_s) if kind == "mix" else None
         self.pending = sorted(timings, key=lambda t: (t.aligned_start_s, t.index))
@@ -160,7 +163,10 @@ class _ScoringPass:
         if n == 0:
             return
         if self.tracker is not None:
-            both = views["total"] if self.info.layout != "5.1" else np.hstack([views["total"], views["fold_total"]])
+            # What the tracker follows per listening arrangement (estimate.tracked_view): a stereo
+            # mix's mid, else the listener power; the 5.1 fold-down's mid.
+            main = tracked_view(self.structure)
+            both = views[main] if self.info.layout != "5.1" else np.hstack([views[main], views["fold_mixed"]])
             tracked = self.tracker.process(both)
             views["tracked"] = tracked[:, :N_FEATURES]
             if self.info.layout == "5.1":
@@ -284,8 +290,7 @@ class _ScoringPass:
             wada_speech = fraction * mean["mixed"][FLAT]
         else:
             wada_speech = fraction * mean["total"][FLAT]
-        structure: Spatial = "none" if not self.spatial else ("mid-side" if layout == "stereo" else "centre-others")
-        est = estimate_mix(cue.evidence("", structure, wada_speech))
+        est = estimate_mix(cue.evidence("", self.structure, wada_speech))
         fold = None
         if layout == "5.1":
             fold_est = estimate_mix(cue.evidence("fold_", "mid-side", wada_speech))
