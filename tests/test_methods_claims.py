@@ -202,9 +202,16 @@ def test_six_db_louder_needs_the_same_background_cut(turned_up: dict[str, Turned
     after = plan_events(dataclasses.replace(turned.analysis, scores=turned.louder), PlanSettings())
     assert before and [e.cue_indices for e in after] == [e.cue_indices for e in before]
     for a, b in zip(before, after, strict=True):
-        # One 0.1 dB planner step at most (the SII moved by thousandths), and no lift: the
-        # louder programme is not offered its own loudness back as a fix.
-        assert b.background_gain_db == pytest.approx(a.background_gain_db, abs=0.1 + 1e-9)
+        # One 0.1 dB planner step at most from stems (their SII moves by millionths). From the
+        # mix the SII may move by up to 0.01 (test above), which the planner answers with the
+        # cut that SII change is worth at this event's slope (SII gained per dB of cut), on top
+        # of a step either way. And no lift: the louder programme is not offered its own
+        # loudness back as a fix.
+        tolerance_db = 0.1
+        if turned.analysis.scores[0].method == "mix":
+            slope = (a.score_after - a.score_before) / abs(a.background_gain_db)
+            tolerance_db = 0.2 + abs(b.score_before - a.score_before) / slope
+        assert b.background_gain_db == pytest.approx(a.background_gain_db, abs=tolerance_db + 1e-9)
         assert a.dialogue_gain_db == b.dialogue_gain_db == 0.0
 
 

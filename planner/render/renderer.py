@@ -20,6 +20,8 @@ over an input); the plan's SHA-256 and the render settings go into the file's de
 from __future__ import annotations
 
 import hashlib
+import os
+import tempfile
 from collections.abc import Iterator
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
@@ -161,6 +163,30 @@ def render(
         GainEnvelope(plan.events, fs, "dialogue", duration_s=total_s),
         GainEnvelope(plan.events, fs, "background", duration_s=total_s),
     )
+
+    # The analysis metered the same input blocks (pipeline: ``block.mix``): no need to meter them again.
+    recorded = plan.analysis.loudness
+    before_summary = recorded if recorded.integrated_lufs is not None else None
+    with _Passes(plan, programme, envelopes, block_frames, progress or no_progress, out_path) as passes:
+        return _render_passes(
+            passes, plan, programme, out_path, settings, stem_paths, inputs, before_summary, fs, total_s,
+        )  # fmt: skip
+
+
+def _render_passes(
+    passes: _Passes,
+    plan: Plan,
+    programme: Programme,
+    out_path: Path,
+    settings: RenderSettings,
+    stem_paths: tuple[Path, ...],
+    inputs: list[Path],
+    before_summary: LoudnessSummary | None,
+    fs: int,
+    total_s: float,
+) -> RenderReport:
+    """The measuring and writing passes of :func:`render` and its report."""
+    info = programme.info
     notes: list[str] = []
     target = settings.target()
     target_lufs: float | None
@@ -172,12 +198,11 @@ def render(
         target_lufs, ceiling, tolerance = None, settings.true_peak_dbtp, None
         label = "off" if ceiling is None else f"off, ceiling {ceiling:g} dBTP"
     sha = plan_sha256(plan)
-
-    passes = _Passes(plan, programme, envelopes, block_frames, progress or no_progress)
-    gain_db, processed_lufs, before_summary = 0.0, None, None
+    gain_db, processed_lufs = 0.0, None
     if target_lufs is not None:
         # Pass 1: the gain needs the processed programme's integrated loudness first.
-        before_summary, processed = passes.measure("render: measuring", with_input=True)
+        metered, processed = passes.measure("render: measuring", with_input=before_summary is None, record=True)
+        before_summary = before_summary or metered
         processed_lufs = processed.integrated_lufs
         if processed_lufs is None:
             notes.append("the processed programme is silent after BS.1770 gating; no loudness gain was applied")
@@ -253,7 +278,14 @@ class _Outputs:
 
 
 class _Passes:
-    """Reads and processes the programme once per call: measuring passes and the writing pass."""
+    """Reads and processes the programme once per call: measuring passes and the writing pass.
+
+    A mix's separation is the costly part of a pass and gives the same samples every time,
+    so the first measuring pass (``record=True``) keeps its processed output in a temporary
+    float32 file beside the output, and later passes read that file instead of separating
+    again (disk, not memory: 4 bytes per sample and channel, removed on exit). Stems are
+    cheap to process and are simply read again.
+    """
 
     def __init__(
         self,
@@ -262,22 +294,73 @@ class _Passes:
         envelopes: tuple[GainEnvelope, GainEnvelope],
         block_frames: int,
         progress: Progress,
+        out_path: Path,
     ) -> None:
         self._args = (plan, programme, envelopes, block_frames, progress)
         self._info = programme.info
+        self._block_frames = block_frames
+        self._progress = progress
+        self._out_path = out_path
+        self._cache: Path | None = None
+
+    def __enter__(self) -> _Passes:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._cache is not None:
+            self._cache.unlink(missing_ok=True)
+            self._cache = None
 
     def _meter(self) -> LoudnessMeter:
         return LoudnessMeter(self._info.sample_rate_hz, self._info.layout)
 
+    def _pieces(
+        self, stage: str, *, record: bool = False
+    ) -> Iterator[tuple[AudioArray | None, AudioArray, tuple[AudioArray, AudioArray] | None]]:
+        """The processed programme in time order, from the cache when there is one (input blocks then ``None``)."""
+        if self._cache is not None:
+            yield from self._replay(stage)
+            return
+        if not record or self._args[1].kind != "mix":
+            yield from _process(*self._args, stage)
+            return
+        fd, name = tempfile.mkstemp(dir=self._out_path.parent, prefix=f".{self._out_path.name}.", suffix=".f32")
+        path = Path(name)
+        try:
+            with os.fdopen(fd, "wb") as f:
+                for piece in _process(*self._args, stage):
+                    f.write(np.ascontiguousarray(piece[1], dtype=np.float32).tobytes())
+                    yield piece
+        except BaseException:
+            path.unlink(missing_ok=True)
+            raise
+        self._cache = path
+
+    def _replay(self, stage: str) -> Iterator[tuple[None, AudioArray, None]]:
+        assert self._cache is not None
+        n_ch, fs = self._info.n_channels, self._info.sample_rate_hz
+        total_s, done = self._info.duration_s, 0
+        with self._cache.open("rb") as f:
+            while True:
+                out = np.fromfile(f, dtype=np.float32, count=self._block_frames * n_ch).reshape(-1, n_ch)
+                if not out.shape[0]:
+                    break
+                done += out.shape[0]
+                yield None, out, None
+                self._progress(stage, min(done / fs, total_s), total_s)
+
     def measure(
-        self, stage: str, *, with_input: bool, gain_db: float = 0.0, ceiling: float | None = None
+        self, stage: str, *, with_input: bool, gain_db: float = 0.0, ceiling: float | None = None, record: bool = False
     ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
-        """Loudness of the input (when asked) and of the processed programme after gain and limiter."""
+        """Loudness of the input (when asked) and of the processed programme after gain and limiter.
+
+        ``record`` keeps a mix's processed output for the later passes (class docstring).
+        """
         before = self._meter() if with_input else None
         after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
         limiter = None if ceiling is None else TruePeakLimiter(self._info.sample_rate_hz, self._info.n_channels, ceiling_dbtp=ceiling)
-        for inp, out, _ in _process(*self._args, stage):
+        for inp, out, _ in self._pieces(stage, record=record):
             if before is not None and inp is not None:
                 _feed(before, inp)
             y = out if gain == 1.0 else out * gain
@@ -322,7 +405,7 @@ class _Passes:
                     writer.write(y)
                     _feed(after, y)
 
-            for inp, out, stems in _process(*self._args, "render: writing"):
+            for inp, out, stems in self._pieces("render: writing"):
                 if before is not None and inp is not None:
                     _feed(before, inp)
                 y = out if gain == 1.0 else out * gain
