@@ -34,15 +34,18 @@ def test_sine_at_band_centre_reads_its_mean_square(fs: int, band: int) -> None:
 
 
 def test_frame_count_and_any_split_gives_the_same_frames(rng: np.random.Generator) -> None:
-    # Ground truth: ceil(n / hop) frames, and the streaming contract (split invariance).
+    # Ground truth: ceil(n / hop) frames, and the streaming contract (split invariance), to
+    # float32 precision: the transforms run in float32 and a split changes how many frames
+    # go through one batched FFT call, whose SIMD lanes and scalar tail round differently
+    # (measured: relative 1.9e-7 on one machine, 0 on another), so rtol 1e-6.
     fs = 48000
     x = (0.1 * rng.standard_normal(fs * 2 + 123)).astype(np.float32)
     whole = _analyse(x, fs)
     assert whole.shape == (int(np.ceil(x.size / 480)), 18)
     splits = sorted(int(s) for s in rng.integers(0, x.size, 25))
-    np.testing.assert_allclose(_analyse(x, fs, splits), whole, rtol=1e-9, atol=1e-20)
+    np.testing.assert_allclose(_analyse(x, fs, splits), whole, rtol=1e-6, atol=1e-20)
     tiny = list(range(0, 3000, 7))  # many calls shorter than one hop
-    np.testing.assert_allclose(_analyse(x, fs, tiny), whole, rtol=1e-9, atol=1e-20)
+    np.testing.assert_allclose(_analyse(x, fs, tiny), whole, rtol=1e-6, atol=1e-20)
 
 
 def test_non_integer_hop_rate_keeps_frames_on_time(rng: np.random.Generator) -> None:

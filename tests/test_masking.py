@@ -249,7 +249,9 @@ def test_clipped_audio_is_reported_in_the_cue_reason(rng: np.random.Generator) -
 
 
 def test_scores_do_not_depend_on_the_block_size(rng: np.random.Generator) -> None:
-    # Relation: the streaming pass must give the same scores for any split of the audio.
+    # Relation: the streaming pass must give the same scores for any split of the audio, up
+    # to the order of float32 sums (a block split changes how numpy's pairwise and SIMD sums
+    # group the samples: measured 2e-10 in SII and 2e-9 LU on one machine), so 1e-6.
     n = 3 * FS
     speech = _spread([0.05 * _noise(rng, n, lowpass_hz=1200.0)] * 2, "stereo")
     bg = _spread([0.01 * rng.standard_normal(n), 0.01 * rng.standard_normal(n)], "stereo")
@@ -258,7 +260,7 @@ def test_scores_do_not_depend_on_the_block_size(rng: np.random.Generator) -> Non
         a = _score(speech, bg, timings, layout="stereo", kind=kind, block=4096)
         b = _score(speech, bg, timings, layout="stereo", kind=kind, block=FS)
         for x, y in zip(a, b):
-            assert x.sii == pytest.approx(y.sii, abs=1e-9) and x.sbld_lu == pytest.approx(y.sbld_lu, abs=1e-9)
+            assert x.sii == pytest.approx(y.sii, abs=1e-6) and x.sbld_lu == pytest.approx(y.sbld_lu, abs=1e-6)
 
 
 def test_blocks_must_start_at_zero_and_be_contiguous(rng: np.random.Generator) -> None:
