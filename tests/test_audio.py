@@ -75,6 +75,17 @@ def test_round_trip_every_format(tmp_path, rng, name, n_channels):
     np.testing.assert_array_equal(got, expected)
 
 
+@pytest.mark.parametrize("name", ["wav-pcm16", "wav-pcm24", "flac-pcm16", "flac-pcm24"])
+def test_integer_files_read_as_libsndfile_converts_them(tmp_path, rng, name):
+    # Reference: libsndfile's own float32 conversion (soundfile dtype="float32"), extreme codes included.
+    fmt, subtype, bits = FORMATS[name]
+    data, _ = codes(rng, 3000, 2, bits)
+    info = np.iinfo(data.dtype)
+    data[:2] = [[info.min, info.max], [info.max, info.min]]
+    path = write(tmp_path / f"x.{fmt.lower()}", data, fmt=fmt, subtype=subtype)
+    np.testing.assert_array_equal(read_all(path, block_frames=1000), sf.read(str(path), dtype="float32", always_2d=True)[0])
+
+
 @pytest.mark.parametrize("name", sorted(FORMATS), ids=sorted(FORMATS))
 def test_probe_fields(tmp_path, rng, name):
     fmt, subtype, bits = FORMATS[name]

@@ -179,6 +179,31 @@ def test_hangover_bridges_word_pauses_and_drops_blips() -> None:
     assert ends.tolist() == [173, 313]
 
 
+def test_hysteresis_state_holds_between_the_thresholds() -> None:
+    # Constructed track, expected mask written by hand from the rule (threshold 0.5 starts
+    # speech, below the release 0.35 ends it, values between keep the previous state, and
+    # before the first decisive frame there is no speech); no duration rules.
+    h = Hangover(min_speech_s=0.0, min_silence_s=0.0, pad_s=0.0)
+    p = np.array([0.4, 0.45, 0.6, 0.4, 0.36, 0.3, 0.4, 0.5, 0.35, 0.2, 0.49], np.float32)
+    expected = [False, False, True, True, True, False, False, True, True, False, False]
+    assert h.apply(p).tolist() == expected
+    assert h.apply(p[:0]).tolist() == []
+
+
+@given(st.lists(st.booleans(), max_size=60))
+def test_runs_are_the_true_stretches(flags: list[bool]) -> None:
+    # Ground truth: the runs listed by walking the flags one by one.
+    expected, start = [], None
+    for i, f in enumerate(flags + [False]):
+        if f and start is None:
+            start = i
+        if not f and start is not None:
+            expected.append((start, i))
+            start = None
+    starts, ends = vad.runs(np.array(flags, dtype=bool))
+    assert list(zip(starts.tolist(), ends.tolist())) == expected
+
+
 def test_hangover_settings_are_checked() -> None:
     with pytest.raises(SettingsError, match="release=0.6, threshold=0.5"):
         Hangover(release=0.6)

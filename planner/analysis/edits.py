@@ -39,26 +39,55 @@ ORDER_TOLERANCE_S = 0.5
 MAX_CANDIDATES = 12
 
 
+#: Cue-signal frames per block of :func:`coarse_scores` (about 5.5 min of 10 ms frames): its
+#: memory is that of a few such blocks, whatever the programme length.
+COARSE_BLOCK_FRAMES = 1 << 15
+
+
 def coarse_scores(z: FloatArray, a: np.ndarray, b: np.ndarray, max_lag: int) -> FloatArray:
     """Mean speech signal under the cue frames ``[a, b)`` shifted by each lag ``-max_lag..max_lag``.
 
     ``z`` is the speech signal ``(n,)`` (taken as -1 outside the audio); returns
-    ``(2 max_lag + 1,)``, index ``k`` for lag ``k - max_lag`` frames.
+    ``(2 max_lag + 1,)``, index ``k`` for lag ``k - max_lag`` frames. The cross-correlation
+    of the cue cover with the speech signal is summed over blocks of
+    :data:`COARSE_BLOCK_FRAMES` cue frames (each block's valid correlation against its slice
+    of the speech signal), so memory does not grow with the programme.
     """
+    a, b = np.asarray(a, dtype=np.int64), np.asarray(b, dtype=np.int64)
     j0, j1 = int(a.min()), int(b.max())
-    cover = np.zeros(j1 - j0 + 1, dtype=np.int32)
-    np.add.at(cover, a - j0, 1)
-    np.add.at(cover, b - j0, -1)
-    c = (np.cumsum(cover[:-1]) > 0).astype(np.float64)
-    total = c.sum()
+    out = np.zeros(2 * max_lag + 1)
+    total = 0
+    for s0 in range(j0, j1, COARSE_BLOCK_FRAMES):
+        s1 = min(s0 + COARSE_BLOCK_FRAMES, j1)
+        c = _cover(a, b, s0, s1)
+        n_covered = int(np.count_nonzero(c))
+        if n_covered == 0:
+            continue  # adds exactly nothing
+        total += n_covered
+        out += correlate(_extended(z, s0 - max_lag, s1 + max_lag), c, mode="valid", method="fft")
     if total == 0:
         return np.full(2 * max_lag + 1, -1.0)
-    ext = np.full(j1 - j0 + 2 * max_lag, -1.0)
-    lo, hi = j0 - max_lag, j1 + max_lag
+    out /= total
+    return out
+
+
+def _cover(a: np.ndarray, b: np.ndarray, s0: int, s1: int) -> FloatArray:
+    """1.0 on the frames of ``[s0, s1)`` inside any cue span ``[a, b)``, else 0.0."""
+    hit = (a < s1) & (b > s0)
+    lo, hi = np.maximum(a[hit], s0) - s0, np.minimum(b[hit], s1) - s0
+    delta = np.zeros(s1 - s0 + 1, dtype=np.int32)
+    np.add.at(delta, lo, 1)
+    np.add.at(delta, hi, -1)
+    return (np.cumsum(delta[:-1], dtype=np.int32) > 0).astype(np.float64)
+
+
+def _extended(z: FloatArray, lo: int, hi: int) -> FloatArray:
+    """``z[lo:hi]`` with -1 for the frames outside the signal."""
+    ext = np.full(hi - lo, -1.0)
     s0, s1 = max(lo, 0), min(hi, z.size)
     if s1 > s0:
         ext[s0 - lo : s1 - lo] = z[s0:s1]
-    return correlate(ext, c, mode="valid", method="fft") / total
+    return ext
 
 
 def span_agreement(zcum: FloatArray, a: np.ndarray, b: np.ndarray) -> FloatArray:

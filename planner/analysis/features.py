@@ -71,29 +71,34 @@ class FrameFeatures:
         self._hop = frame_s * sample_rate_hz
         self._n_seen = 0
         self._next_frame = 0  # next K/flat frame to complete
-        self._carry = np.zeros((0, 2))  # squared (K, flat) samples of the unfinished frame
+        # squared K-weighted and flat samples of the unfinished frame
+        self._carry: tuple[FloatArray, FloatArray] = (np.zeros(0), np.zeros(0))
         self._queue: list[FloatArray] = []  # K/flat frames waiting for their band frames
 
     def _boundary(self, j: npt.NDArray[np.int64]) -> npt.NDArray[np.int64]:
         return np.floor(j * self._hop + 0.5).astype(np.int64)
 
-    def _frames_from(self, squares: FloatArray, stop_frame: int) -> FloatArray:
-        """Mean squares of frames ``next_frame..stop_frame-1`` from ``carry + squares``."""
-        data = np.concatenate([self._carry, squares])
+    def _frames_from(self, squares: tuple[FloatArray, FloatArray], stop_frame: int) -> FloatArray:
+        """Mean squares ``(n, 2)`` (K, flat) of frames ``next_frame..stop_frame-1`` from ``carry + squares``.
+
+        Each of the two tracks is summed on its own (a contiguous 1-D ``reduceat`` adds in the
+        same order as one over a column of the two stacked).
+        """
+        data = [np.concatenate([c, q]) for c, q in zip(self._carry, squares)]
         start = int(self._boundary(np.array([self._next_frame]))[0])
         j = np.arange(self._next_frame, stop_frame + 1)
-        edges = np.minimum(self._boundary(j), start + data.shape[0]) - start
+        edges = np.minimum(self._boundary(j), start + data[0].shape[0]) - start
         if stop_frame > self._next_frame:
             counts = np.diff(edges)
-            used = data[: edges[-1]]
             sums = np.zeros((counts.size, 2))
             full = counts > 0  # only the partial last frame at the end of a signal can be empty
-            if used.shape[0]:
-                sums[full] = np.add.reduceat(used, edges[:-1][full], axis=0)
+            if edges[-1]:
+                for column, track in enumerate(data):
+                    sums[full, column] = np.add.reduceat(track[: edges[-1]], edges[:-1][full])
             out = sums / np.maximum(counts, 1)[:, None]
         else:
             out = np.zeros((0, 2))
-        self._carry = data[edges[-1] :]
+        self._carry = (data[0][edges[-1] :], data[1][edges[-1] :])
         self._next_frame = stop_frame
         return out
 
@@ -120,14 +125,14 @@ class FrameFeatures:
         sig = np.asarray(x, dtype=np.float64)
         kw, self._zi = self._sosfilt(self._sos, sig, zi=self._zi)
         self._n_seen += sig.size
-        squares = np.stack([kw * kw, sig * sig], axis=1)
+        squares = (np.multiply(kw, kw, out=kw), sig * sig)
         self._queue.append(self._frames_from(squares, max(self._complete_frames(), self._next_frame)))
         return self._combine(self._bands.process(sig.astype(np.float32)))
 
     def flush(self) -> FloatArray:
         """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``."""
         total = int(np.ceil(self._n_seen / self._hop - 1e-9))
-        self._queue.append(self._frames_from(np.zeros((0, 2)), max(total, self._next_frame)))
+        self._queue.append(self._frames_from((np.zeros(0), np.zeros(0)), max(total, self._next_frame)))
         return self._combine(self._bands.flush())
 
 

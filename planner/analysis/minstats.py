@@ -95,57 +95,62 @@ class MinimumStatistics:
         n = self.n_features
         self._p = y.copy()  # smoothed power P (Eq. 4)
         self._noise = y.copy()  # sigma_N^2
-        self._p_bar = y.copy()  # first moment of P
-        self._p2_bar = y * y  # second moment of P
+        # first and second moments of P, one row each
+        self._moments = np.stack([y, y * y])
         self._alpha_c = 1.0
-        self._actmin = np.full(n, np.inf)
-        self._actmin_sub = np.full(n, np.inf)
+        # minimum of the biased P over the current sub-window, for D (row 0) and V (row 1)
+        self._actmin = np.full((2, n), np.inf)
         self._pmin_u = y.copy()
         self._buffer = np.full((self.n_sub, n), np.inf)  # minima of the last U sub-windows
         self._buffer_i = 0
         self._sub_count = 1
         self._local_min = np.zeros(n, dtype=bool)
+        # constants of B_min for D (row 0) and V (row 1), Eqs. 17-18
+        m = np.array([[self._m_d], [self._m_v]])
+        self._two_m = 2.0 * m
+        self._one_minus_m = 1.0 - m
+        self._two_d_minus_1 = np.array([[(self.window_len - 1) * 2.0], [(self.sub_len - 1) * 2.0]])
         # work arrays of _step
-        self._alpha, self._beta, self._one_minus_beta, self._tmp, self._q_inv, self._q, self._candidate = (
-            np.empty(n) for _ in range(7)
-        )
+        self._alpha, self._beta, self._tmp, self._q_inv = (np.empty(n) for _ in range(4))
+        self._terms, self._candidate = np.empty((2, n)), np.empty((2, n))
         self._lower = np.empty(n, dtype=bool)
         self._started = True
 
-    def _step(self, y: FloatArray) -> FloatArray:
+    def _step(self, y: FloatArray, y_sum: np.float64, out: FloatArray) -> None:
+        """One frame: write the noise estimate of power ``y`` (whose sum is ``y_sum``) into ``out``."""
         # One call per 10 ms frame on arrays of a few dozen values, so the cost is numpy's
-        # per-call overhead: the arrays are updated in place (with the same operations in the
-        # same order as the formulas, hence the same values), and slow helpers (np.clip,
-        # .mean, np.where, np.errstate) are replaced by plain ufuncs.
-        p, noise, tmp = self._p, self._noise, self._tmp
+        # per-call overhead: the arrays are updated in place, the pairs of rows that follow
+        # the same formula (the two moments, the minima over D and over V) in one call each,
+        # with the same operations in the same order as the formulas (hence the same values);
+        # slow helpers (np.clip, .mean, np.where, np.errstate) are replaced by plain ufuncs.
+        p, noise, tmp, alpha, beta = self._p, self._noise, self._tmp, self._alpha, self._beta
         # Correction factor for the smoothing (Eq. 11), from the whole frame's power.
-        ratio = _sum(p) / _sum(y)
+        ratio = _sum(p) / y_sum
         alpha_c_tilde = 1.0 / (1.0 + (ratio - 1.0) ** 2)
         self._alpha_c = ALPHA_C_SMOOTH * self._alpha_c + (1.0 - ALPHA_C_SMOOTH) * max(alpha_c_tilde, 0.7)
         # Optimal smoothing factor (Eq. 7 with alpha_c), floored at ALPHA_MIN.
-        alpha = np.divide(p, noise, out=self._alpha)
+        np.divide(p, noise, out=alpha)
         alpha -= 1.0
         np.square(alpha, out=alpha)
         alpha += 1.0
         np.divide(ALPHA_MAX * self._alpha_c, alpha, out=alpha)
         np.maximum(alpha, ALPHA_MIN, out=alpha)
         # P = alpha P + (1 - alpha) y  (Eq. 4)
-        np.multiply(alpha, p, out=p)
+        p *= alpha
         np.subtract(1.0, alpha, out=tmp)
         tmp *= y
         p += tmp
         # Variance of P from first and second moments (Eq. 23), and 1/Q_eq (Eq. 16).
-        beta = np.multiply(alpha, alpha, out=self._beta)
+        np.multiply(alpha, alpha, out=beta)
         np.minimum(beta, BETA_MAX, out=beta)
-        one_minus_beta = np.subtract(1.0, beta, out=self._one_minus_beta)
-        self._p_bar *= beta
-        np.multiply(one_minus_beta, p, out=tmp)
-        self._p_bar += tmp
-        self._p2_bar *= beta
-        tmp *= p  # (1 - beta) P P
-        self._p2_bar += tmp
-        q_inv = np.square(self._p_bar, out=self._q_inv)
-        np.subtract(self._p2_bar, q_inv, out=q_inv)  # var P
+        moments, terms = self._moments, self._terms
+        moments *= beta
+        np.subtract(1.0, beta, out=tmp)
+        np.multiply(tmp, p, out=terms[0])  # (1 - beta) P
+        np.multiply(terms[0], p, out=terms[1])  # (1 - beta) P P
+        moments += terms
+        q_inv = np.square(moments[0], out=self._q_inv)
+        np.subtract(moments[1], q_inv, out=q_inv)  # var P
         np.square(noise, out=tmp)
         tmp *= 2.0
         q_inv /= tmp
@@ -154,43 +159,39 @@ class MinimumStatistics:
         q_inv_mean = float(_sum(q_inv) / q_inv.size)
         b_c = 1.0 + A_V * math.sqrt(q_inv_mean)  # Eq. 22
         # Q_eq = 1 / q_inv, infinite where q_inv is 0 (then no bias below; process() lets 1/0 pass).
-        q = np.divide(1.0, q_inv, out=self._q)
-        # Bias of the minimum over D and over V frames (Eqs. 17-18), infinite Q_eq -> no bias.
-        candidate = self._biased(q, self.window_len, self._m_d, b_c, self._candidate)
-        lower = np.less(candidate, self._actmin, out=self._lower)
-        np.copyto(self._actmin, candidate, where=lower)
-        np.copyto(self._actmin_sub, self._biased(q, self.sub_len, self._m_v, b_c, tmp), where=lower)
+        q = np.divide(1.0, q_inv, out=tmp)
+        # P B_min(d, Q_eq) B_c with B_min = 1 + (d - 1) 2 / ((Q_eq - 2 M) / (1 - M)) for d = D
+        # and V (Eqs. 17-18); infinite Q_eq -> no bias.
+        candidate = np.subtract(q, self._two_m, out=self._candidate)
+        candidate /= self._one_minus_m
+        np.divide(self._two_d_minus_1, candidate, out=candidate)
+        candidate += 1.0
+        candidate *= p
+        candidate *= b_c
+        actmin = self._actmin
+        lower = np.less(candidate[0], actmin[0], out=self._lower)
+        np.copyto(actmin, candidate, where=lower)
+        actmin_sub = actmin[1]
         if self._sub_count == self.sub_len:
             # End of a sub-window: store its minimum, take the minimum over the last U.
             self._local_min[lower] = False
-            self._buffer[self._buffer_i] = self._actmin
+            self._buffer[self._buffer_i] = actmin[0]
             self._buffer_i = (self._buffer_i + 1) % self.n_sub
             self._pmin_u = self._buffer.min(axis=0)
             slope = next((s for lim, s in _SLOPE_STEPS if q_inv_mean < lim), _SLOPE_DEFAULT)
-            rising = self._local_min & (self._actmin_sub < slope * self._pmin_u) & (self._actmin_sub > self._pmin_u)
+            rising = self._local_min & (actmin_sub < slope * self._pmin_u) & (actmin_sub > self._pmin_u)
             if rising.any():
-                self._pmin_u = np.where(rising, self._actmin_sub, self._pmin_u)
+                self._pmin_u = np.where(rising, actmin_sub, self._pmin_u)
                 self._buffer[:, rising] = self._pmin_u[rising]
             self._local_min[:] = False
             self._sub_count = 1
-            self._actmin[:] = np.inf
+            actmin[0] = np.inf
         else:
             if self._sub_count > 1:
                 self._local_min |= lower
             self._sub_count += 1
-        self._noise = np.minimum(self._actmin_sub, self._pmin_u)
-        self._pmin_u = self._noise
-        return self._noise
-
-    def _biased(self, q: FloatArray, d: int, m: float, b_c: float, out: FloatArray) -> FloatArray:
-        """``P B_min(d, Q_eq) B_c`` with ``B_min = 1 + (d - 1) 2 / ((Q_eq - 2 M) / (1 - M))`` (Eqs. 17-18)."""
-        np.subtract(q, 2.0 * m, out=out)
-        out /= 1.0 - m
-        np.divide((d - 1) * 2.0, out, out=out)
-        out += 1.0
-        np.multiply(self._p, out, out=out)
-        out *= b_c
-        return out
+        # the estimate is the state of the next frame: out is not written again until then
+        self._noise = self._pmin_u = np.minimum(actmin_sub, self._pmin_u, out=out)
 
     def process(self, power: npt.ArrayLike) -> FloatArray:
         """Noise power estimate for each frame.
@@ -211,11 +212,19 @@ class MinimumStatistics:
                 f"power has shape {y_all.shape}; pass (n_frames, {self.n_features}) powers per frame"
             )
         out = np.empty_like(y_all)
+        if not y_all.shape[0]:
+            return out
+        first = 0
+        if not self._started:
+            self._start(y_all[0])
+            out[0] = self._noise
+            first = 1
+        # the frame sums of Eq. 11, all at once (a row reduction sums as the 1-D one does)
+        y_sums = _sum(y_all, axis=1)
+        step = self._step
         with np.errstate(divide="ignore"):
-            for i, y in enumerate(y_all):
-                if not self._started:
-                    self._start(y)
-                    out[i] = self._noise
-                    continue
-                out[i] = self._step(y)
+            for i in range(first, y_all.shape[0]):
+                step(y_all[i], y_sums[i], out[i])
+        # the state must not alias the array handed back (the caller may change it)
+        self._noise = self._pmin_u = self._noise.copy()
         return out

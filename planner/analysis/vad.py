@@ -28,6 +28,7 @@ from dataclasses import dataclass
 from typing import Any, Literal, Protocol
 
 import numpy as np
+import numpy.typing as npt
 import soxr
 from scipy.signal import butter, sosfilt, sosfilt_zi
 
@@ -107,25 +108,32 @@ class Hangover:
 
 def runs(mask: BoolArray) -> tuple[np.ndarray, np.ndarray]:
     """Start and end (exclusive) frame indices of the True runs of ``mask``."""
-    edges = np.flatnonzero(np.diff(np.concatenate(([0], mask.astype(np.int8), [0]))))
+    padded = np.zeros(mask.size + 2, dtype=np.int8)
+    padded[1:-1] = mask
+    edges = np.flatnonzero(np.diff(padded))
     return edges[::2], edges[1::2]
 
 
 def _from_runs(n: int, starts: np.ndarray, ends: np.ndarray) -> BoolArray:
+    # int32 counts, summed in place: the track spans the whole programme (at most 2**31 frames)
     delta = np.zeros(n + 1, dtype=np.int32)
     np.add.at(delta, starts, 1)
     np.add.at(delta, ends, -1)
-    return np.cumsum(delta[:-1]) > 0
+    np.cumsum(delta, out=delta)
+    return delta[:-1] > 0
 
 
 def _hysteresis(p: np.ndarray, on: float, off: float) -> BoolArray:
     # Each frame takes the state set by the most recent frame that was decisive
     # (>= on starts speech, < off ends it); frames in between keep that state.
-    decisive = (p >= on) | (p < off)
-    last = np.maximum.accumulate(np.where(decisive, np.arange(p.size), -1))
-    out = np.zeros(p.size, dtype=bool)
-    seen = last >= 0
-    out[seen] = p[last[seen]] >= on
+    starts = p >= on
+    decisive = p < off
+    decisive |= starts
+    last = np.arange(p.size, dtype=np.int32)  # frame indices fit 32 bits (2**31 frames: 248 days)
+    last[~decisive] = -1
+    np.maximum.accumulate(last, out=last)
+    out = starts[last]  # where no frame was decisive yet, last is -1 and the result is cleared below
+    out &= last >= 0
     return out
 
 
@@ -276,11 +284,11 @@ class SpeechDetector:
             self._process(tail)
         # 10 ms frames (ANALYSIS_FRAME_S) from t = 0 covering the input, the last one possibly partial.
         n_frames = -(-self._n_in * 100 // self._rate)
-        prob = np.concatenate(self._prob)[:n_frames] if self._prob else np.zeros(0, np.float32)
-        energy_db = np.concatenate(self._energy)[:n_frames] if self._energy else np.zeros(0, np.float32)
+        prob, energy_db = _joined(self._prob, n_frames), _joined(self._energy, n_frames)
+        self._prob, self._energy = [], []
         if self._scorer.name == "fast":
             prob = moving_mean(prob, FAST_VOTE_FRAMES).astype(np.float32)
-        prob = np.clip(prob, 0.0, 1.0).astype(np.float32)
+        np.clip(prob, 0.0, 1.0, out=prob)
         mask = self._hangover.apply(prob)
         spans = low_confidence_spans(prob, energy_db, threshold=self._hangover.threshold)
         notes = self._notes + tuple(span_note(s) for s in spans)
@@ -293,6 +301,18 @@ class SpeechDetector:
             notes=notes,
             level_db=energy_db,
         )
+
+
+def _joined(parts: list[np.ndarray], n: int) -> npt.NDArray[np.float32]:
+    """The first ``n`` values (at most all) of the float32 ``parts`` joined, as one new array."""
+    out = np.empty(min(n, sum(part.size for part in parts)), dtype=np.float32)
+    n = out.size
+    pos = 0
+    for part in parts:
+        take = min(part.size, n - pos)
+        out[pos : pos + take] = part[:take]
+        pos += take
+    return out
 
 
 def make_detector(
