@@ -16,7 +16,8 @@ from hypothesis import strategies as st
 
 from planner.analysis import vad
 from planner.analysis.confidence import LowConfidenceSpan, span_note, spans_from_notes
-from planner.analysis.vad import Hangover, detect_speech, make_detector
+from planner.analysis.speechmask import Hangover, runs
+from planner.analysis.vad import detect_speech, make_detector
 from planner.demo.backgrounds import make_background
 from planner.demo.lines import lines_at_rate, load_lines
 from planner.demo.synth import synth_programme
@@ -174,7 +175,7 @@ def test_hangover_bridges_word_pauses_and_drops_blips() -> None:
     p[300:310] = 0.4  # between release and threshold: hysteresis keeps speech
     p[380:390] = 1.0  # 100 ms blip: shorter than 250 ms, dropped
     mask = h.apply(p)
-    starts, ends = vad.runs(mask)
+    starts, ends = runs(mask)
     assert starts.tolist() == [47, 247]
     assert ends.tolist() == [173, 313]
 
@@ -200,7 +201,7 @@ def test_runs_are_the_true_stretches(flags: list[bool]) -> None:
         if not f and start is not None:
             expected.append((start, i))
             start = None
-    starts, ends = vad.runs(np.array(flags, dtype=bool))
+    starts, ends = runs(np.array(flags, dtype=bool))
     assert list(zip(starts.tolist(), ends.tolist())) == expected
 
 

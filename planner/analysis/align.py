@@ -52,7 +52,7 @@ from planner.analysis.checks import (
 from planner.analysis.confidence import moving_mean, span_mask, spans_from_notes
 from planner.analysis.edits import break_time_s, coarse_scores, find_segments, span_agreement
 from planner.analysis.onsets import FineFit, fine_fit, onset_strength
-from planner.analysis.vad import runs as mask_runs
+from planner.analysis.speechmask import runs as mask_runs
 from planner.errors import InputError
 from planner.io.timecode import frame_rate
 from planner.model import Alignment, Cue, CueTiming, MappingSegment, SpeechActivity, UncoveredSpeech

@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from planner._typing import BoolArray, FloatArray
-from planner.analysis.vad import Hangover, fill_short_gaps, runs
+from planner.analysis.speechmask import Hangover, fill_short_gaps, runs
 from planner.errors import SettingsError
 from planner.model import SpeechActivity, UncoveredSpeech
 from planner.units import ANALYSIS_FRAME_S
