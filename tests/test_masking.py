@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 from pystoi import stoi as pystoi_stoi
 from scipy.signal import butter, sosfilt
 
+from planner.analysis.cuepass import frame_runs
 from planner.analysis.hearing import hearing_profile
 from planner.analysis.masking import score_cues, verdict
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz, sii
@@ -340,3 +341,23 @@ def test_verdict_never_improves_when_the_sii_falls(low: float, high: float, sbld
     order = {"masked": 0, "at-risk": 1, "clear": 2}
     low, high = min(low, high), max(low, high)
     assert order[verdict(low, sbld)] <= order[verdict(high, sbld)]
+
+
+@given(
+    rate_hz=st.sampled_from([8000, 11025, 16000, 22050, 44100, 48000, 96000]),
+    b0=st.integers(0, 200_000),
+    n=st.integers(0, 3000),
+)
+def test_frame_runs_give_each_sample_the_frame_that_holds_it(rate_hz: int, b0: int, n: int) -> None:
+    # Ground truth from the definition, sample by sample: the frame holding sample s is the
+    # largest j whose first sample nearest_int(j * hop) (halves up) is at or before s.
+    hop = 0.01 * rate_hz
+    expected = []
+    for s in range(b0, b0 + n):
+        j = int(s // hop) + 1
+        while math.floor(j * hop + 0.5) > s:
+            j -= 1
+        expected.append(j)
+    first, counts = frame_runs(b0, n, hop)
+    assert counts.sum() == n and (counts > 0).all()  # every frame listed holds a sample
+    assert np.repeat(np.arange(first, first + counts.shape[0]), counts).tolist() == expected

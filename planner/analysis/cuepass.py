@@ -46,6 +46,24 @@ def frame_of_sample(samples: npt.NDArray[np.int64], hop: float) -> npt.NDArray[n
     return np.ceil((samples + 0.5) / hop).astype(np.int64) - 1
 
 
+def frame_runs(b0: int, n: int, hop: float) -> tuple[int, npt.NDArray[np.int64]]:
+    """The frames holding samples ``b0 .. b0 + n - 1``: the first one, and how many of those
+    samples each holds, so that ``np.repeat(per_frame, counts)`` equals ``per_frame`` looked up
+    at :func:`frame_of_sample` of every sample (no frame for ``n`` = 0)."""
+    if n == 0:
+        return 0, np.zeros(0, dtype=np.int64)
+    j0, j1 = (int(j) for j in frame_of_sample(np.array([b0, b0 + n - 1], dtype=np.int64), hop))
+    # first sample of each later frame: frame_start, then moved so that frame_of_sample agrees
+    # exactly (the two may differ by float rounding for a fractional hop)
+    j = np.arange(j0 + 1, j1 + 1, dtype=np.int64)
+    first = np.floor(j * hop + 0.5).astype(np.int64)
+    for _ in range(2):
+        first += frame_of_sample(first, hop) < j
+        first -= frame_of_sample(first - 1, hop) >= j
+    edges = np.concatenate([[b0], first, [b0 + n]])
+    return j0, np.diff(edges)
+
+
 def listener_mono(x: AudioArray, layout: str) -> FloatArray:
     """One signal for STOI: mid of stereo, mid of the BS.775 fold-down of 5.1, or the mono channel."""
     if layout == "5.1":

@@ -42,7 +42,7 @@ from planner.analysis.cuepass import (
     STOI_MIN_S,
     CueAccumulator,
     clipped_runs,
-    frame_of_sample,
+    frame_runs,
     frame_start,
     listener_mono,
 )
@@ -187,7 +187,9 @@ class _ScoringPass:
         b0, n = self.samples_done, block.n_frames
         checked = [block.mix] if self.kind == "mix" else [block.dialogue, block.background]
         runs, self.clip_carry = clipped_runs(checked, self.clip_carry)
-        speech = self._speech_at(frame_of_sample(np.arange(b0, b0 + n), self.hop))
+        # the speech flag of each frame the block touches, repeated over its samples
+        first, counts = frame_runs(b0, n, self.hop)
+        speech = np.repeat(self._speech_at(np.arange(first, first + counts.shape[0])), counts)
         detection = detection_signal(block.mix, self.info.layout) if self.kind == "mix" else None
         mono_mix = mono_clean = None
         if block.dialogue is not None and any(c.keep_audio and c.s0 < b0 + n and c.s1 > b0 for c in self.open):
