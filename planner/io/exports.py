@@ -14,7 +14,7 @@ from __future__ import annotations
 import csv
 import io
 import json
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from functools import cache
 from importlib import resources
 from pathlib import Path
@@ -29,6 +29,7 @@ from planner.model import SCHEMA_VERSION, GainEvent, Plan
 
 __all__ = [
     "plan_json",
+    "plan_json_chunks",
     "load_plan",
     "write_cues_csv",
     "write_events_csv",
@@ -66,8 +67,15 @@ def plan_json(plan: Plan) -> str:
     The plan passes once through its record form first, so a value given as ``3`` where
     the record holds a float is written ``3.0``, as a loaded plan would write it.
     """
+    return "".join(plan_json_chunks(plan))
+
+
+def plan_json_chunks(plan: Plan) -> Iterator[str]:
+    """:func:`plan_json` piece by piece, so that a hash of it needs no copy of the whole text."""
     data = {"kind": Plan.KIND, **Plan.from_dict(plan.to_dict()).to_dict()}
-    return json.dumps(data, sort_keys=True, indent=2, separators=(",", ": "), ensure_ascii=False, allow_nan=False) + "\n"
+    encoder = json.JSONEncoder(sort_keys=True, indent=2, separators=(",", ": "), ensure_ascii=False, allow_nan=False)
+    yield from encoder.iterencode(data)
+    yield "\n"
 
 
 @cache

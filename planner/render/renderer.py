@@ -34,7 +34,7 @@ from planner._typing import AudioArray
 from planner.analysis.loudness import LoudnessMeter
 from planner.errors import PlanFileError, SettingsError
 from planner.io.audio import DEFAULT_BLOCK_FRAMES, AudioWriter, Programme, iter_programme
-from planner.io.exports import plan_json
+from planner.io.exports import plan_json_chunks
 from planner.io.files import refuse_inputs
 from planner.model import AudioInfo, LoudnessSummary, Plan, Record
 from planner.progress import Progress, no_progress
@@ -94,7 +94,10 @@ class RenderReport(Record):
 
 def plan_sha256(plan: Plan) -> str:
     """SHA-256 (hex) of the plan's canonical JSON, the same bytes ``plan.json`` holds."""
-    return hashlib.sha256(plan_json(plan).encode("utf-8")).hexdigest()
+    digest = hashlib.sha256()
+    for chunk in plan_json_chunks(plan):
+        digest.update(chunk.encode("utf-8"))
+    return digest.hexdigest()
 
 
 def render(
