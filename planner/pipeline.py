@@ -26,7 +26,7 @@ from planner.analysis.vad import make_detector
 from planner.folder import Inputs, relative_path
 from planner.io.audio import Programme, iter_programme, open_programme
 from planner.io.files import sha256_file
-from planner.io.parallel import feature_worker, speech_source, speech_worker, use_workers
+from planner.io.parallel import band_worker, speech_source, speech_worker, use_workers
 from planner.io.subtitles import read_subtitles
 from planner.model import (
     SCHEMA_VERSION,
@@ -117,15 +117,18 @@ def measure(programme: Programme, settings: AnalysisSettings, *, progress: Progr
     """Pass 1: programme loudness and the speech track.
 
     With two or more cores and a programme of at least a minute, the speech detector reads
-    the audio in a second process while this one meters the loudness
-    (:mod:`planner.io.parallel`); otherwise one read feeds both. The results are the same.
+    the audio in a second process (metering a mix's true peak there too) while this one
+    meters the loudness (:mod:`planner.io.parallel`); otherwise one read feeds both. The
+    results are the same.
     """
     progress = progress or no_progress
     info = programme.info
-    meter = LoudnessMeter(info.sample_rate_hz, info.layout)
+    workers = use_workers(programme)
+    # from a mix, the worker meters the true peak (a third of the meter's work)
+    meter = LoudnessMeter(info.sample_rate_hz, info.layout, true_peak=not (workers and programme.kind == "mix"))
     with contextlib.ExitStack() as stack:
         detector = None
-        if use_workers(programme):
+        if workers:
             result = stack.enter_context(speech_worker(programme, settings))
         else:
             detector = make_detector(
@@ -138,8 +141,8 @@ def measure(programme: Programme, settings: AnalysisSettings, *, progress: Progr
                 speech = block.dialogue if block.dialogue is not None else block.mix
                 detector.feed(detection_signal(speech, info.layout))
             progress("speech detection", (block.start_frame + block.n_frames) / info.sample_rate_hz, info.duration_s)
-        activity = result() if detector is None else detector.finish()
-    return activity, meter.summary(speech_mask=activity.is_speech, frame_s=activity.frame_s)
+        activity, peaks = result() if detector is None else (detector.finish(), None)
+    return activity, meter.summary(speech_mask=activity.is_speech, frame_s=activity.frame_s, peaks=peaks)
 
 
 def align_cues(
@@ -182,7 +185,7 @@ def score_pass(
     """Pass 2: per-cue masking scores over the aligned spans."""
     with contextlib.ExitStack() as stack:
         # on two cores: frame features in a second process, the rest here (same scores)
-        features = stack.enter_context(feature_worker(programme, activity.frame_s)) if use_workers(programme) else None
+        bands = stack.enter_context(band_worker(programme, activity.frame_s)) if use_workers(programme) else None
         return score_cues(
             iter_programme(programme),
             info=programme.info,
@@ -191,7 +194,7 @@ def score_pass(
             activity=activity,
             settings=settings,
             progress=progress,
-            features=features,
+            bands=bands,
         )
 
 

@@ -373,6 +373,16 @@ def test_measure_loudness_is_the_meter(rng):
     assert_same(measure_loudness(blocks, FS, "stereo"), meter(x))
 
 
+def test_peaks_metered_elsewhere_read_the_same(rng):
+    # Ground truth: the one-meter reading of the same samples (the split must change nothing).
+    x = _programme(rng, 6.0, 2, FS)
+    loudness, peaks = LoudnessMeter(FS, "stereo", true_peak=False), TruePeakMeter(FS, 2)
+    for i in range(0, x.shape[0], 4096):
+        loudness.feed(x[i : i + 4096])
+        peaks.feed(x[i : i + 4096])
+    assert_same(loudness.summary(peaks=peaks), meter(x))
+
+
 @pytest.mark.parametrize(
     ("make", "match"),
     [
@@ -380,8 +390,9 @@ def test_measure_loudness_is_the_meter(rng):
         (lambda: LoudnessMeter(FS, "7.1"), r"layout='7.1' must be one of mono, stereo, 5.1"),
         (lambda: TruePeakMeter(FS, 2).feed(np.zeros((10, 1), np.float32)), r"does not match n_channels=2"),
         (lambda: meter(tone(-20, 1), speech_mask=np.ones(100, bool), frame_s=0.0), r"frame_s=0.0 must be in"),
+        (lambda: LoudnessMeter(FS, "stereo", true_peak=False).summary(), r"made with true_peak=False; pass peaks="),
     ],
-    ids=["channels", "layout", "tp-channels", "frame-s"],
+    ids=["channels", "layout", "tp-channels", "frame-s", "no-peaks"],
 )
 def test_bad_arguments(make, match):
     with pytest.raises(InputError, match=match):

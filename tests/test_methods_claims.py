@@ -155,10 +155,14 @@ def _pairs(turned: Turned) -> list[tuple[CueScore, CueScore]]:
 @pytest.mark.parametrize("case", PROGRAMME_IDS)
 def test_six_db_louder_leaves_every_loudness_difference_unchanged(turned_up: dict[str, Turned], case: str) -> None:
     # Ground truth: both stems (or the mix) times 10**(6/20); common practice: louder is not clearer.
+    # From stems the levels are measured, so to 0.05 LU; from the mix they are estimates whose
+    # discrete steps (the tracker's minimum search, the Huber weights) can be tipped by the
+    # rounding of the scaled 24-bit samples: 0.15 LU (measured up to 0.072 on one machine).
+    tolerance_lu = 0.05 if case.endswith("stems") else 0.15
     for before, after in _pairs(turned_up[case]):
         assert before.sbld_lu is not None and before.speech_db is not None
-        assert after.sbld_lu == pytest.approx(before.sbld_lu, abs=0.05)
-        assert after.speech_db == pytest.approx(before.speech_db + 6.0, abs=0.05)
+        assert after.sbld_lu == pytest.approx(before.sbld_lu, abs=tolerance_lu)
+        assert after.speech_db == pytest.approx(before.speech_db + 6.0, abs=tolerance_lu)
 
 
 @pytest.mark.parametrize("case", PROGRAMME_IDS)

@@ -71,9 +71,9 @@ def test_worker_that_dies_raises(programme_files: dict[str, Path], monkeypatch: 
     def die(*args: object) -> None:
         os._exit(7)
 
-    monkeypatch.setattr(parallel, "_feature_items", die)
+    monkeypatch.setattr(parallel, "_band_items", die)
     if parallel._context().get_start_method() != "fork":
         pytest.skip("the patched target reaches the worker only through fork")
-    with parallel.feature_worker(open_programme(mix=programme_files["mix"]), 0.01) as items:
+    with parallel.band_worker(open_programme(mix=programme_files["mix"]), 0.01) as items:
         with pytest.raises(CueplanError, match="exit code 7"):
             next(items)

@@ -60,9 +60,9 @@ class FrameFeatures:
     """
 
     def __init__(self, sample_rate_hz: int, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
-        # imported here: scipy.signal takes about a second to import, and planning needs
-        # this module's constants only
-        from scipy.signal import sosfilt
+        # imported here: the compiled filter loads numba (about 0.3 s and 100 MB), and
+        # planning needs this module's constants only
+        from planner.analysis.iir import sosfilt
 
         self._sosfilt = sosfilt
         self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
@@ -120,20 +120,35 @@ class FrameFeatures:
             m -= 1
         return m
 
-    def process(self, x: npt.ArrayLike) -> FloatArray:
-        """Feature vectors of the frames completed by this input, shape ``(n_frames, N_FEATURES)``."""
+    def band_powers(self, x: npt.ArrayLike) -> FloatArray:
+        """The band columns alone of :meth:`process` (``x`` as there): what ``bands=`` takes."""
+        return self._bands.process(np.asarray(x, dtype=np.float64).astype(np.float32))
+
+    def flush_band_powers(self) -> FloatArray:
+        """The band columns alone of :meth:`flush`."""
+        return self._bands.flush()
+
+    def process(self, x: npt.ArrayLike, bands: FloatArray | None = None) -> FloatArray:
+        """Feature vectors of the frames completed by this input, shape ``(n_frames, N_FEATURES)``.
+
+        ``bands``: :meth:`band_powers` of the same input computed elsewhere (by another
+        instance fed the same signal, e.g. in another process); computed here when omitted.
+        """
         sig = np.asarray(x, dtype=np.float64)
-        kw, self._zi = self._sosfilt(self._sos, sig, zi=self._zi)
+        kw, self._zi = self._sosfilt(self._sos, sig, self._zi)
         self._n_seen += sig.size
         squares = (np.multiply(kw, kw, out=kw), sig * sig)
         self._queue.append(self._frames_from(squares, max(self._complete_frames(), self._next_frame)))
-        return self._combine(self._bands.process(sig.astype(np.float32)))
+        return self._combine(self.band_powers(sig) if bands is None else bands)
 
-    def flush(self) -> FloatArray:
-        """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``."""
+    def flush(self, bands: FloatArray | None = None) -> FloatArray:
+        """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``.
+
+        ``bands``: :meth:`flush_band_powers` computed elsewhere, as in :meth:`process`.
+        """
         total = int(np.ceil(self._n_seen / self._hop - 1e-9))
         self._queue.append(self._frames_from((np.zeros(0), np.zeros(0)), max(total, self._next_frame)))
-        return self._combine(self._bands.flush())
+        return self._combine(self.flush_band_powers() if bands is None else bands)
 
 
 def _listener_sum(powers: list[FloatArray], weights: npt.ArrayLike) -> FloatArray:
@@ -199,26 +214,38 @@ class ProgrammeFeatures:
             "fold_clean": p[6],
         }
 
-    def _run(self, arrays: list[FloatArray] | None) -> dict[str, FloatArray]:
-        if arrays is None:
-            parts = [s.flush() for s in self._signals]
-        else:
-            parts = [s.process(a) for s, a in zip(self._signals, arrays)]
-        return self._views(parts)
-
-    def process(self, block: ProgrammeBlock) -> dict[str, FloatArray]:
-        """Views of the frames completed by this block, each ``(n_frames, N_FEATURES)``."""
+    def _arrays(self, block: ProgrammeBlock) -> list[FloatArray]:
         if self.kind == "stems":
             if block.dialogue is None or block.background is None:
                 raise InputError(
                     "stems scoring needs dialogue and background in every block; open the programme with both stems"
                 )
             dialogue, background = block.dialogue.astype(np.float64), block.background.astype(np.float64)
-            arrays = self._signals_of(dialogue) + self._signals_of(background)
-        else:
-            arrays = self._signals_of(block.mix.astype(np.float64))
-        return self._run(arrays)
+            return self._signals_of(dialogue) + self._signals_of(background)
+        return self._signals_of(block.mix.astype(np.float64))
 
-    def flush(self) -> dict[str, FloatArray]:
-        """Views of the last frames after the final block."""
-        return self._run(None)
+    def band_powers(self, block: ProgrammeBlock) -> list[FloatArray]:
+        """Band powers of the frames this block completes, one array per analysed signal.
+
+        The costly part of :meth:`process`, for another process to compute: another
+        instance's ``process(block, bands=...)`` then gives exactly what it gives alone.
+        """
+        return [s.band_powers(a) for s, a in zip(self._signals, self._arrays(block))]
+
+    def flush_band_powers(self) -> list[FloatArray]:
+        """The band powers of the last frames, as :meth:`band_powers` after the final block."""
+        return [s.flush_band_powers() for s in self._signals]
+
+    def process(self, block: ProgrammeBlock, bands: list[FloatArray] | None = None) -> dict[str, FloatArray]:
+        """Views of the frames completed by this block, each ``(n_frames, N_FEATURES)``.
+
+        ``bands``: this block's :meth:`band_powers` if computed elsewhere.
+        """
+        arrays = self._arrays(block)
+        given = bands if bands is not None else [None] * len(arrays)
+        return self._views([s.process(a, b) for s, a, b in zip(self._signals, arrays, given)])
+
+    def flush(self, bands: list[FloatArray] | None = None) -> dict[str, FloatArray]:
+        """Views of the last frames after the final block (``bands``: :meth:`flush_band_powers`)."""
+        given = bands if bands is not None else [None] * len(self._signals)
+        return self._views([s.flush(b) for s, b in zip(self._signals, given)])

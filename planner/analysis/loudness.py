@@ -162,6 +162,9 @@ class LoudnessMeter:
         Rate of the blocks (at least 8000 Hz).
     layout : {"mono", "stereo", "5.1"}
         Channel layout; sets the channel weights (LFE excluded) and the expected channel count.
+    true_peak : bool, keyword-only
+        Meter the true and sample peaks here (default); False when another meter fed the
+        same samples does it (e.g. in another process), given to :meth:`summary`.
 
     Notes
     -----
@@ -171,14 +174,14 @@ class LoudnessMeter:
     that the end of the programme cuts short is discarded (BS.1770-4 Annex 1).
     """
 
-    def __init__(self, sample_rate_hz: int, layout: Layout) -> None:
+    def __init__(self, sample_rate_hz: int, layout: Layout, *, true_peak: bool = True) -> None:
         weights = channel_weights(layout)
         self.sample_rate_hz = sample_rate_hz
         self.layout = layout
         self.n_channels = len(weights)
-        # imported here, as in features.py: scipy.signal takes about a second to import,
-        # and `cueplan plan` reaches this module (through the scoring) without metering
-        from scipy.signal import sosfilt
+        # imported here, as in features.py: the compiled filter loads numba (about 0.3 s
+        # and 100 MB), and `cueplan plan` reaches this module (through the scoring) without metering
+        from planner.analysis.iir import sosfilt
 
         self._sosfilt = sosfilt
         self._sos = k_weighting_sos(sample_rate_hz)
@@ -189,7 +192,7 @@ class LoudnessMeter:
         self._pending = np.zeros((len(self._metered), 0))  # squares of the unfinished step
         self._work = np.zeros((len(self._metered), 0))
         self._step_sums: list[np.ndarray] = []
-        self._true_peak = TruePeakMeter(sample_rate_hz, self.n_channels)
+        self._true_peak = TruePeakMeter(sample_rate_hz, self.n_channels) if true_peak else None
         self.n_frames = 0
 
     def feed(self, block: AudioArray) -> None:
@@ -201,14 +204,15 @@ class LoudnessMeter:
             )
         if block.shape[0] == 0:
             return
-        self._true_peak.feed(block)
+        if self._true_peak is not None:
+            self._true_peak.feed(block)
         # channels first in float64 (stage 2's poles sit 0.005 from the unit circle), copied
         # into a reused buffer: fresh megabyte temporaries per block cost page faults
         if self._work.shape[1] != block.shape[0]:
             self._work = np.zeros((len(self._metered), block.shape[0]))
         for row, channel in enumerate(self._metered):
             self._work[row] = block[:, channel]
-        y, self._zi = self._sosfilt(self._sos, self._work, axis=-1, zi=self._zi)
+        y, self._zi = self._sosfilt(self._sos, self._work, self._zi)
         np.square(y, out=y)
         head = 0
         if self._pending.shape[1]:
@@ -232,7 +236,13 @@ class LoudnessMeter:
             return np.zeros(0)
         return np.concatenate(self._step_sums) @ self._weights
 
-    def summary(self, speech_mask: BoolArray | None = None, frame_s: float = ANALYSIS_FRAME_S) -> LoudnessSummary:
+    def summary(
+        self,
+        speech_mask: BoolArray | None = None,
+        frame_s: float = ANALYSIS_FRAME_S,
+        *,
+        peaks: TruePeakMeter | None = None,
+    ) -> LoudnessSummary:
         """Every figure of the audio fed so far.
 
         Parameters
@@ -242,6 +252,8 @@ class LoudnessMeter:
             end count as non-speech. Without it ``speech_lufs`` is None.
         frame_s : float
             Frame length of ``speech_mask`` in seconds.
+        peaks : TruePeakMeter, optional
+            The peak meter fed the same samples, for a meter made with ``true_peak=False``.
 
         Returns
         -------
@@ -252,6 +264,9 @@ class LoudnessMeter:
             least half of whose frames are speech, gated as the integrated loudness.
             ``None`` where nothing is left after gating or the audio is too short.
         """
+        peaks = peaks if peaks is not None else self._true_peak
+        if peaks is None:
+            raise InputError("this meter was made with true_peak=False; pass peaks= (the meter fed the same samples)")
         steps = self._step_power()
         blocks = _window_power(steps, _BLOCK_STEPS, self._step)
         short = _window_power(steps, _SHORT_TERM_STEPS, self._step)
@@ -262,8 +277,8 @@ class LoudnessMeter:
         return LoudnessSummary(
             integrated_lufs=_gated_lufs(blocks),
             loudness_range_lu=_loudness_range(short),
-            true_peak_dbtp=self._true_peak.dbtp,
-            sample_peak_dbfs=self._true_peak.sample_peak_dbfs,
+            true_peak_dbtp=peaks.dbtp,
+            sample_peak_dbfs=peaks.sample_peak_dbfs,
             max_momentary_lufs=_max_lufs(blocks),
             max_short_term_lufs=_max_lufs(short),
             speech_lufs=speech_lufs,

@@ -127,8 +127,8 @@ class _ScoringPass:
                 )
             )
 
-    def feed(self, block: ProgrammeBlock, views: dict[str, FloatArray] | None = None) -> None:
-        """Add one block (contiguous with the previous one); ``views``: its features if computed elsewhere."""
+    def feed(self, block: ProgrammeBlock, bands: list[FloatArray] | None = None) -> None:
+        """Add one block (contiguous with the previous one); ``bands``: its band powers if computed elsewhere."""
         if block.start_frame != self.samples_done:
             raise InputError(
                 f"audio blocks must be contiguous from sample 0; got a block at {block.start_frame}, "
@@ -137,13 +137,13 @@ class _ScoringPass:
         end = self.samples_done + block.n_frames
         self._open(end)
         self._samples(block)
-        self._frames(self.features.process(block) if views is None else views)
+        self._frames(self.features.process(block, bands))
         self.samples_done = end
         self._close(final=False)
 
-    def finish(self, views: dict[str, FloatArray] | None = None) -> tuple[CueScore, ...]:
-        """Scores of every cue, in index order, after the last block (``views``: the features' flush)."""
-        self._frames(self.features.flush() if views is None else views)
+    def finish(self, bands: list[FloatArray] | None = None) -> tuple[CueScore, ...]:
+        """Scores of every cue, in index order, after the last block (``bands``: the band powers' flush)."""
+        self._frames(self.features.flush(bands))
         self._open(None)
         self._close(final=True)
         return tuple(self.scores[i] for i in sorted(self.scores))
@@ -327,7 +327,7 @@ def score_cues(
     activity: SpeechActivity,
     settings: AnalysisSettings,
     progress: Progress | None = None,
-    features: Iterable[dict[str, FloatArray]] | None = None,
+    bands: Iterable[list[FloatArray]] | None = None,
 ) -> tuple[CueScore, ...]:
     """Score every cue for masking in one pass over the programme's blocks.
 
@@ -347,10 +347,11 @@ def score_cues(
         Listening level (dB SPL at -23 LUFS) and hearing profile.
     progress : Progress, optional
         Called as ``progress("scoring", seconds done, seconds total)``.
-    features : iterable of dict, optional
-        The frame features of the same blocks computed elsewhere (e.g. in another process):
-        ``ProgrammeFeatures(info, kind, frame_s=activity.frame_s)``'s ``process(block)`` for
-        every block, then its ``flush()``. Computed here when omitted; the scores are the same.
+    bands : iterable of lists of arrays, optional
+        The band powers of the same blocks computed elsewhere (e.g. in another process):
+        ``ProgrammeFeatures(info, kind, frame_s=activity.frame_s)``'s ``band_powers(block)``
+        for every block, then its ``flush_band_powers()``. Computed here when omitted; the
+        scores are the same.
 
     Returns
     -------
@@ -361,21 +362,21 @@ def score_cues(
     ------
     InputError
         If the blocks are not contiguous from sample 0, stems blocks lack a stem, or
-        ``features`` ends before the blocks do.
+        ``bands`` ends before the blocks do.
     """
     report = progress or no_progress
     scoring = _ScoringPass(info, kind, timings, activity, settings)
-    views = None if features is None else iter(features)
+    given = None if bands is None else iter(bands)
     for block in blocks:
-        scoring.feed(block, None if views is None else _next_views(views))
+        scoring.feed(block, None if given is None else _next_bands(given))
         report("scoring", scoring.samples_done / info.sample_rate_hz, info.duration_s)
-    return scoring.finish(None if views is None else _next_views(views))
+    return scoring.finish(None if given is None else _next_bands(given))
 
 
-def _next_views(views: Iterator[dict[str, FloatArray]]) -> dict[str, FloatArray]:
+def _next_bands(given: Iterator[list[FloatArray]]) -> list[FloatArray]:
     try:
-        return next(views)
+        return next(given)
     except StopIteration:
         raise InputError(
-            "features= ended before the audio blocks; pass one entry per block and one for the flush"
+            "bands= ended before the audio blocks; pass one entry per block and one for the flush"
         ) from None

@@ -27,6 +27,7 @@ import math
 
 import numpy as np
 import numpy.typing as npt
+from numba import njit
 
 from planner._typing import FloatArray
 from planner.errors import SettingsError
@@ -48,7 +49,6 @@ _SLOPE_STEPS = ((0.03, 8.0), (0.05, 4.0), (0.06, 2.0))
 _SLOPE_DEFAULT = 1.2
 # Power floor (re full scale) so digital silence does not divide by zero: -200 dB.
 _POWER_FLOOR = 1e-20
-_sum = np.add.reduce
 
 
 def m_of_d(d: float) -> float:
@@ -87,111 +87,23 @@ class MinimumStatistics:
         self.sub_len = max(2, int(round(window_s / frame_s / n_subwindows)))  # V
         self.n_sub = n_subwindows  # U
         self.window_len = self.sub_len * self.n_sub  # D = U V
-        self._m_d = m_of_d(self.window_len)
-        self._m_v = m_of_d(self.sub_len)
+        # constants of B_min for D (index 0) and V (index 1), Eqs. 17-18
+        m = np.array([m_of_d(self.window_len), m_of_d(self.sub_len)])
+        self._constants = np.stack([2.0 * m, 1.0 - m, np.array([(self.window_len - 1) * 2.0, (self.sub_len - 1) * 2.0])])
         self._started = False
 
     def _start(self, y: FloatArray) -> None:
         n = self.n_features
         self._p = y.copy()  # smoothed power P (Eq. 4)
-        self._noise = y.copy()  # sigma_N^2
-        # first and second moments of P, one row each
-        self._moments = np.stack([y, y * y])
-        self._alpha_c = 1.0
+        self._noise = y.copy()  # sigma_N^2, which is also the running minimum P_min,u
+        self._moments = np.stack([y, y * y])  # first and second moments of P
         # minimum of the biased P over the current sub-window, for D (row 0) and V (row 1)
         self._actmin = np.full((2, n), np.inf)
-        self._pmin_u = y.copy()
         self._buffer = np.full((self.n_sub, n), np.inf)  # minima of the last U sub-windows
-        self._buffer_i = 0
-        self._sub_count = 1
-        self._local_min = np.zeros(n, dtype=bool)
-        # constants of B_min for D (row 0) and V (row 1), Eqs. 17-18
-        m = np.array([[self._m_d], [self._m_v]])
-        self._two_m = 2.0 * m
-        self._one_minus_m = 1.0 - m
-        self._two_d_minus_1 = np.array([[(self.window_len - 1) * 2.0], [(self.sub_len - 1) * 2.0]])
-        # work arrays of _step
-        self._alpha, self._beta, self._tmp, self._q_inv = (np.empty(n) for _ in range(4))
-        self._terms, self._candidate = np.empty((2, n)), np.empty((2, n))
-        self._lower = np.empty(n, dtype=bool)
+        self._local_min = np.zeros(n, dtype=np.bool_)
+        # alpha_c, then the buffer position and the frame count in the sub-window
+        self._alpha_c, self._buffer_i, self._sub_count = 1.0, 0, 1
         self._started = True
-
-    def _step(self, y: FloatArray, y_sum: np.float64, out: FloatArray) -> None:
-        """One frame: write the noise estimate of power ``y`` (whose sum is ``y_sum``) into ``out``."""
-        # One call per 10 ms frame on arrays of a few dozen values, so the cost is numpy's
-        # per-call overhead: the arrays are updated in place, the pairs of rows that follow
-        # the same formula (the two moments, the minima over D and over V) in one call each,
-        # with the same operations in the same order as the formulas (hence the same values);
-        # slow helpers (np.clip, .mean, np.where, np.errstate) are replaced by plain ufuncs.
-        p, noise, tmp, alpha, beta = self._p, self._noise, self._tmp, self._alpha, self._beta
-        # Correction factor for the smoothing (Eq. 11), from the whole frame's power.
-        ratio = _sum(p) / y_sum
-        alpha_c_tilde = 1.0 / (1.0 + (ratio - 1.0) ** 2)
-        self._alpha_c = ALPHA_C_SMOOTH * self._alpha_c + (1.0 - ALPHA_C_SMOOTH) * max(alpha_c_tilde, 0.7)
-        # Optimal smoothing factor (Eq. 7 with alpha_c), floored at ALPHA_MIN.
-        np.divide(p, noise, out=alpha)
-        alpha -= 1.0
-        np.square(alpha, out=alpha)
-        alpha += 1.0
-        np.divide(ALPHA_MAX * self._alpha_c, alpha, out=alpha)
-        np.maximum(alpha, ALPHA_MIN, out=alpha)
-        # P = alpha P + (1 - alpha) y  (Eq. 4)
-        p *= alpha
-        np.subtract(1.0, alpha, out=tmp)
-        tmp *= y
-        p += tmp
-        # Variance of P from first and second moments (Eq. 23), and 1/Q_eq (Eq. 16).
-        np.multiply(alpha, alpha, out=beta)
-        np.minimum(beta, BETA_MAX, out=beta)
-        moments, terms = self._moments, self._terms
-        moments *= beta
-        np.subtract(1.0, beta, out=tmp)
-        np.multiply(tmp, p, out=terms[0])  # (1 - beta) P
-        np.multiply(terms[0], p, out=terms[1])  # (1 - beta) P P
-        moments += terms
-        q_inv = np.square(moments[0], out=self._q_inv)
-        np.subtract(moments[1], q_inv, out=q_inv)  # var P
-        np.square(noise, out=tmp)
-        tmp *= 2.0
-        q_inv /= tmp
-        np.maximum(q_inv, 0.0, out=q_inv)
-        np.minimum(q_inv, 0.5, out=q_inv)
-        q_inv_mean = float(_sum(q_inv) / q_inv.size)
-        b_c = 1.0 + A_V * math.sqrt(q_inv_mean)  # Eq. 22
-        # Q_eq = 1 / q_inv, infinite where q_inv is 0 (then no bias below; process() lets 1/0 pass).
-        q = np.divide(1.0, q_inv, out=tmp)
-        # P B_min(d, Q_eq) B_c with B_min = 1 + (d - 1) 2 / ((Q_eq - 2 M) / (1 - M)) for d = D
-        # and V (Eqs. 17-18); infinite Q_eq -> no bias.
-        candidate = np.subtract(q, self._two_m, out=self._candidate)
-        candidate /= self._one_minus_m
-        np.divide(self._two_d_minus_1, candidate, out=candidate)
-        candidate += 1.0
-        candidate *= p
-        candidate *= b_c
-        actmin = self._actmin
-        lower = np.less(candidate[0], actmin[0], out=self._lower)
-        np.copyto(actmin, candidate, where=lower)
-        actmin_sub = actmin[1]
-        if self._sub_count == self.sub_len:
-            # End of a sub-window: store its minimum, take the minimum over the last U.
-            self._local_min[lower] = False
-            self._buffer[self._buffer_i] = actmin[0]
-            self._buffer_i = (self._buffer_i + 1) % self.n_sub
-            self._pmin_u = self._buffer.min(axis=0)
-            slope = next((s for lim, s in _SLOPE_STEPS if q_inv_mean < lim), _SLOPE_DEFAULT)
-            rising = self._local_min & (actmin_sub < slope * self._pmin_u) & (actmin_sub > self._pmin_u)
-            if rising.any():
-                self._pmin_u = np.where(rising, actmin_sub, self._pmin_u)
-                self._buffer[:, rising] = self._pmin_u[rising]
-            self._local_min[:] = False
-            self._sub_count = 1
-            actmin[0] = np.inf
-        else:
-            if self._sub_count > 1:
-                self._local_min |= lower
-            self._sub_count += 1
-        # the estimate is the state of the next frame: out is not written again until then
-        self._noise = self._pmin_u = np.minimum(actmin_sub, self._pmin_u, out=out)
 
     def process(self, power: npt.ArrayLike) -> FloatArray:
         """Noise power estimate for each frame.
@@ -219,12 +131,98 @@ class MinimumStatistics:
             self._start(y_all[0])
             out[0] = self._noise
             first = 1
-        # the frame sums of Eq. 11, all at once (a row reduction sums as the 1-D one does)
-        y_sums = _sum(y_all, axis=1)
-        step = self._step
-        with np.errstate(divide="ignore"):
-            for i in range(first, y_all.shape[0]):
-                step(y_all[i], y_sums[i], out[i])
-        # the state must not alias the array handed back (the caller may change it)
-        self._noise = self._pmin_u = self._noise.copy()
+        self._alpha_c, self._buffer_i, self._sub_count = _track(
+            y_all, first, out, self._p, self._noise, self._moments, self._actmin, self._buffer, self._local_min,
+            self._constants, self._alpha_c, self._buffer_i, self._sub_count, self.sub_len,
+        )  # fmt: skip
         return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _track(  # type: ignore[no-untyped-def]  # noqa: PLR0913
+    y_all, first, out, p, noise, moments, actmin, buffer, local_min, constants, alpha_c, buffer_i, sub_count, sub_len
+):
+    """Frames ``first:`` of ``y_all`` through the tracker: estimates into ``out``, state updated in place.
+
+    Compiled (numba), one frame after another: the recursion is serial in time. Returns the
+    scalar state ``(alpha_c, buffer_i, sub_count)``. Division by zero gives infinity
+    (``error_model="numpy"``): a zero ``1/Q_eq`` means no bias.
+    """
+    n_frames, n = y_all.shape
+    n_sub = buffer.shape[0]
+    q_inv = np.empty(n)
+    lower = np.empty(n, dtype=np.bool_)
+    for i in range(first, n_frames):
+        y = y_all[i]
+        # Correction factor for the smoothing (Eq. 11), from the whole frame's power.
+        p_sum = 0.0
+        y_sum = 0.0
+        for k in range(n):
+            p_sum += p[k]
+            y_sum += y[k]
+        ratio = p_sum / y_sum
+        alpha_c_tilde = 1.0 / (1.0 + (ratio - 1.0) ** 2)
+        alpha_c = ALPHA_C_SMOOTH * alpha_c + (1.0 - ALPHA_C_SMOOTH) * max(alpha_c_tilde, 0.7)
+        q_sum = 0.0
+        for k in range(n):
+            # Optimal smoothing factor (Eq. 7 with alpha_c), floored at ALPHA_MIN.
+            a = p[k] / noise[k] - 1.0
+            a = max(ALPHA_MAX * alpha_c / (a * a + 1.0), ALPHA_MIN)
+            pk = p[k] * a + (1.0 - a) * y[k]  # Eq. 4
+            p[k] = pk
+            # Variance of P from first and second moments (Eq. 23), and 1/Q_eq (Eq. 16).
+            beta = min(a * a, BETA_MAX)
+            t = (1.0 - beta) * pk
+            m0 = moments[0, k] * beta + t
+            m1 = moments[1, k] * beta + t * pk
+            moments[0, k] = m0
+            moments[1, k] = m1
+            qi = min(max((m1 - m0 * m0) / (noise[k] * noise[k] * 2.0), 0.0), 0.5)
+            q_inv[k] = qi
+            q_sum += qi
+        q_inv_mean = q_sum / n
+        b_c = 1.0 + A_V * math.sqrt(q_inv_mean)  # Eq. 22
+        for k in range(n):
+            # P B_min(d, Q_eq) B_c with B_min = 1 + (d - 1) 2 / ((Q_eq - 2 M) / (1 - M)) for
+            # d = D and V (Eqs. 17-18); an infinite Q_eq (1/Q_eq = 0) gives no bias.
+            q = 1.0 / q_inv[k]
+            c_d = (constants[2, 0] / ((q - constants[0, 0]) / constants[1, 0]) + 1.0) * p[k] * b_c
+            c_v = (constants[2, 1] / ((q - constants[0, 1]) / constants[1, 1]) + 1.0) * p[k] * b_c
+            lower[k] = c_d < actmin[0, k]
+            if lower[k]:
+                actmin[0, k] = c_d
+                actmin[1, k] = c_v
+        if sub_count == sub_len:
+            # End of a sub-window: store its minimum, take the minimum over the last U, and
+            # let a rising floor follow the sub-window minimum within the noise slope.
+            slope = _SLOPE_DEFAULT
+            for limit, step in _SLOPE_STEPS:
+                if q_inv_mean < limit:
+                    slope = step
+                    break
+            for k in range(n):
+                buffer[buffer_i, k] = actmin[0, k]
+            buffer_i = (buffer_i + 1) % n_sub
+            for k in range(n):
+                lowest = buffer[0, k]
+                for u in range(1, n_sub):
+                    lowest = min(lowest, buffer[u, k])
+                sub_min = actmin[1, k]
+                if local_min[k] and not lower[k] and sub_min < slope * lowest and sub_min > lowest:
+                    lowest = sub_min
+                    for u in range(n_sub):
+                        buffer[u, k] = lowest
+                noise[k] = lowest
+                local_min[k] = False
+                actmin[0, k] = np.inf
+            sub_count = 1
+        else:
+            if sub_count > 1:
+                for k in range(n):
+                    local_min[k] = local_min[k] or lower[k]
+            sub_count += 1
+        # the estimate is the state of the next frame
+        for k in range(n):
+            noise[k] = min(actmin[1, k], noise[k])
+            out[i, k] = noise[k]
+    return alpha_c, buffer_i, sub_count

@@ -1,11 +1,12 @@
 """Both passes over the audio on two cores: worker processes that read the programme themselves.
 
 Pass 1 (:func:`speech_worker`): the speech detector reads the detection signal in a second
-process while the caller meters the loudness. Pass 2 (:func:`feature_worker`): the frame
-features of the scoring pass (band powers, K-weighted and flat power of every analysed
-signal, :class:`planner.analysis.features.ProgrammeFeatures`) are computed in a second
-process and sent back block by block through a bounded queue, while the caller tracks the
-noise and accumulates the cues. Each worker reads the files on its own (the operating
+process (and, from a mix, meters its true peak there too) while the caller meters the
+loudness. Pass 2 (:func:`band_worker`): the band powers of
+every analysed signal (the costly part of the frame features,
+:meth:`planner.analysis.features.ProgrammeFeatures.band_powers`) are computed in a second
+process and sent back block by block through a bounded queue, while the caller computes
+the K-weighted and flat powers, tracks the noise and accumulates the cues. Each worker reads the files on its own (the operating
 system's cache serves the second read), computes exactly what the single-process code
 computes, in the same order, so results are identical. The queue holds at most
 :data:`QUEUE_BLOCKS` blocks, so memory stays constant whatever the programme length.
@@ -29,6 +30,7 @@ from typing import Any
 from planner._typing import FloatArray
 from planner.analysis.channels import DETECTION_SOURCE, detection_signal
 from planner.analysis.features import ProgrammeFeatures
+from planner.analysis.truepeak import TruePeakMeter
 from planner.analysis.vad import make_detector
 from planner.errors import CueplanError
 from planner.io.audio import Programme, iter_programme
@@ -64,12 +66,15 @@ def speech_source(programme: Programme) -> str:
     return "dialogue stem" if programme.kind == "stems" else DETECTION_SOURCE[programme.info.layout]
 
 
-def detect_programme_speech(programme: Programme, settings: AnalysisSettings) -> SpeechActivity:
+def detect_programme_speech(
+    programme: Programme, settings: AnalysisSettings, peaks: TruePeakMeter | None = None
+) -> SpeechActivity:
     """The speech track of a programme: its detection signal through the configured detector.
 
     The signal is that of the mix, or of the dialogue stem alone (read as a one-file
     programme of the full length, so a shorter stem gets the trailing zeros it gets in
-    :func:`planner.io.audio.iter_programme` of the stems).
+    :func:`planner.io.audio.iter_programme` of the stems). ``peaks``: a meter fed the mix
+    on the way (a mix programme only).
     """
     info = programme.info
     detector = make_detector(
@@ -80,6 +85,8 @@ def detect_programme_speech(programme: Programme, settings: AnalysisSettings) ->
         speech = dataclasses.replace(programme, kind="mix", mix=programme.dialogue, dialogue=None, background=None)
     for block in iter_programme(speech):
         detector.feed(detection_signal(block.mix, info.layout))
+        if peaks is not None:
+            peaks.feed(block.mix)
     return detector.finish()
 
 
@@ -93,15 +100,18 @@ def _run(target: Callable[..., Any], args: tuple[Any, ...], out: Any) -> None:
         out.put(("error", exc))
 
 
-def _speech_items(programme: Programme, settings: AnalysisSettings) -> Iterator[SpeechActivity]:
-    yield detect_programme_speech(programme, settings)
+def _speech_items(
+    programme: Programme, settings: AnalysisSettings
+) -> Iterator[tuple[SpeechActivity, TruePeakMeter | None]]:
+    peaks = TruePeakMeter(programme.info.sample_rate_hz, programme.info.n_channels) if programme.kind == "mix" else None
+    yield detect_programme_speech(programme, settings, peaks), peaks
 
 
-def _feature_items(programme: Programme, frame_s: float) -> Iterator[dict[str, FloatArray]]:
+def _band_items(programme: Programme, frame_s: float) -> Iterator[list[FloatArray]]:
     features = ProgrammeFeatures(programme.info, programme.kind, frame_s=frame_s)
     for block in iter_programme(programme):
-        yield features.process(block)
-    yield features.flush()
+        yield features.band_powers(block)
+    yield features.flush_band_powers()
 
 
 def _received(out: Any, worker: multiprocessing.process.BaseProcess) -> Iterator[Any]:
@@ -139,19 +149,25 @@ def _worker(target: Callable[..., Any], args: tuple[Any, ...], maxsize: int) -> 
 
 
 @contextlib.contextmanager
-def speech_worker(programme: Programme, settings: AnalysisSettings) -> Iterator[Callable[[], SpeechActivity]]:
-    """Start :func:`detect_programme_speech` in a second process; the context gives a function that waits for it."""
+def speech_worker(
+    programme: Programme, settings: AnalysisSettings
+) -> Iterator[Callable[[], tuple[SpeechActivity, TruePeakMeter | None]]]:
+    """Start :func:`detect_programme_speech` in a second process; the context gives a function that waits for it.
+
+    The function returns the speech track and, for a mix programme, the true-peak meter
+    fed the mix (None for stems: the caller meters their sum itself).
+    """
     with _worker(_speech_items, (programme, settings), 1) as items:
         yield lambda: next(items)
 
 
 @contextlib.contextmanager
-def feature_worker(programme: Programme, frame_s: float) -> Iterator[Iterator[dict[str, FloatArray]]]:
-    """Compute the scoring pass's frame features in a second process; the context gives them in order.
+def band_worker(programme: Programme, frame_s: float) -> Iterator[Iterator[list[FloatArray]]]:
+    """Compute the scoring pass's band powers in a second process; the context gives them in order.
 
-    The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s).process(block)`` for every
-    block of :func:`planner.io.audio.iter_programme`, then its ``flush()``: what
-    :func:`planner.analysis.masking.score_cues` takes as ``features``.
+    The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s).band_powers(block)`` for
+    every block of :func:`planner.io.audio.iter_programme`, then its ``flush_band_powers()``:
+    what :func:`planner.analysis.masking.score_cues` takes as ``bands``.
     """
-    with _worker(_feature_items, (programme, frame_s), QUEUE_BLOCKS) as items:
+    with _worker(_band_items, (programme, frame_s), QUEUE_BLOCKS) as items:
         yield items

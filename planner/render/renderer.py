@@ -21,7 +21,9 @@ from __future__ import annotations
 
 import hashlib
 import os
+import queue
 import tempfile
+import threading
 from collections.abc import Iterator
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
@@ -52,6 +54,8 @@ _LIMIT_MARGIN_DB = 0.2
 _CORRECTION_PASSES = 3
 #: A correction below this is taken as settled, LU.
 _CORRECTION_LU = 0.02
+#: Pieces of output that may wait for the metering thread.
+_METER_QUEUE = 4
 
 
 @dataclass(frozen=True)
@@ -360,16 +364,16 @@ class _Passes:
         ``record`` keeps a mix's processed output for the later passes (class docstring).
         """
         before = self._meter() if with_input else None
-        after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
         limiter = None if ceiling is None else TruePeakLimiter(self._info.sample_rate_hz, self._info.n_channels, ceiling_dbtp=ceiling)
-        for inp, out, _ in self._pieces(stage, record=record):
-            if before is not None and inp is not None:
-                _feed(before, inp)
-            y = out if gain == 1.0 else out * gain
-            _feed(after, y if limiter is None else limiter.process(y))
-        if limiter is not None:
-            _feed(after, limiter.flush())
+        with _MeterThread(self._meter()) as after:
+            for inp, out, _ in self._pieces(stage, record=record):
+                if before is not None and inp is not None:
+                    _feed(before, inp)
+                y = out if gain == 1.0 else out * gain
+                after.feed(y if limiter is None else limiter.process(y))
+            if limiter is not None:
+                after.feed(limiter.flush())
         return (None if before is None else before.summary()), after.summary()
 
     def correct_for_limiter(
@@ -399,14 +403,13 @@ class _Passes:
     ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
         """The writing pass: process, gain, limit, write (and measure the input when asked, and the output)."""
         before = self._meter() if with_input else None
-        after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
-        with outputs.opened() as (writer, stem_writers):
+        with _MeterThread(self._meter()) as after, outputs.opened() as (writer, stem_writers):
 
             def emit(y: AudioArray) -> None:
                 if y.shape[0]:
                     writer.write(y)
-                    _feed(after, y)
+                    after.feed(y)
 
             for inp, out, stems in self._pieces("render: writing"):
                 if before is not None and inp is not None:
@@ -424,6 +427,49 @@ def _feed(meter: LoudnessMeter, x: AudioArray) -> None:
     """Meter a piece of audio (the reducer and the limiter may hand over empty pieces)."""
     if x.shape[0]:
         meter.feed(x)
+
+
+class _MeterThread:
+    """A loudness meter fed by a thread, so that metering the output overlaps making it.
+
+    The K-weighting (compiled, :mod:`planner.analysis.iir`) and numpy's loops over large
+    arrays release the interpreter lock, so the thread runs on the second core. Pieces go
+    through a bounded queue (at most :data:`_METER_QUEUE` waiting: constant memory) and
+    must not be changed after :meth:`feed`. Leaving the ``with`` block waits for the
+    thread; an error in it is raised there; :meth:`summary` reads the meter afterwards.
+    """
+
+    def __init__(self, meter: LoudnessMeter) -> None:
+        self._meter = meter
+        self._queue: queue.Queue[AudioArray | None] = queue.Queue(maxsize=_METER_QUEUE)
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, name="cueplan-meter", daemon=True)
+
+    def _run(self) -> None:
+        while (x := self._queue.get()) is not None:
+            if self._error is None:
+                try:
+                    _feed(self._meter, x)
+                except BaseException as exc:  # raised again by __exit__ in the caller
+                    self._error = exc
+
+    def __enter__(self) -> _MeterThread:
+        self._thread.start()
+        return self
+
+    def feed(self, x: AudioArray) -> None:
+        """Queue a piece for metering (blocks while the queue is full)."""
+        self._queue.put(x)
+
+    def __exit__(self, *exc: object) -> None:
+        self._queue.put(None)
+        self._thread.join()
+        if self._error is not None and exc[0] is None:
+            raise self._error
+
+    def summary(self) -> LoudnessSummary:
+        """The meter's figures, after the ``with`` block."""
+        return self._meter.summary()
 
 
 def _process(

@@ -32,7 +32,7 @@ from planner.analysis.masking import score_cues
 from planner.errors import PlanFileError
 from planner.io.audio import Programme, iter_programme
 from planner.io.files import atomic_write_text
-from planner.io.parallel import feature_worker, use_workers
+from planner.io.parallel import band_worker, use_workers
 from planner.model import CueScore, GainEvent, Plan, Record
 from planner.planning.gains import STEP_DB, Scorer, analysis_thresholds
 from planner.progress import Progress
@@ -145,10 +145,10 @@ def verify(
     timings = [t for t in plan.analysis.timings if t.index in planned]
     with contextlib.ExitStack() as stack:
         # frame features in a second process on a long programme (same scores; planner.io.parallel)
-        features = stack.enter_context(feature_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio) else None
+        bands = stack.enter_context(band_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio) else None
         measured = score_cues(
             iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
-            activity=plan.analysis.activity, settings=settings, progress=progress, features=features,
+            activity=plan.analysis.activity, settings=settings, progress=progress, bands=bands,
         )  # fmt: skip
     by_index = {s.index: s for s in measured}
     before = {s.index: s for s in plan.analysis.scores}
