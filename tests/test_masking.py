@@ -212,6 +212,25 @@ def test_stoi_is_none_with_a_reason_for_a_short_cue(rng: np.random.Generator) ->
     assert score.sii is not None
 
 
+def test_stoi_is_none_where_pystoi_finds_too_little_dialogue_above_silence(rng: np.random.Generator) -> None:
+    # Reference: pystoi itself warns and gives up on this span (0.2 s of dialogue in 1.5 s,
+    # under its 30 frames left after removing frames 40 dB below the loudest).
+    n = 2 * FS
+    voice = np.zeros(n)
+    voice[int(0.3 * FS) : int(0.5 * FS)] = 0.05 * rng.standard_normal(int(0.2 * FS))
+    speech = _spread([voice, voice], "stereo")
+    bg = _spread([0.01 * rng.standard_normal(n)] * 2, "stereo")
+    (score,) = _score(speech, bg, [_timing(1, 0.2, 1.7)], layout="stereo")
+    s0, s1 = 20 * HOP, 170 * HOP
+    clean = speech[s0:s1].astype(np.float32).astype(np.float64).mean(axis=1)
+    mixed = (speech.astype(np.float32) + bg.astype(np.float32))[s0:s1].astype(np.float64).mean(axis=1)
+    with pytest.warns(RuntimeWarning, match="Not enough STFT frames"):
+        pystoi_stoi(clean.astype(np.float32), mixed.astype(np.float32), FS)
+    assert score.stoi is None
+    assert score.reason.startswith("no STOI: too little dialogue above silence in the span")
+    assert score.sii is not None
+
+
 def test_cue_without_speech_frames_gets_no_score_and_a_reason(rng: np.random.Generator) -> None:
     # Ground truth: the speech track the test gives marks nothing inside the second cue.
     n = 4 * FS

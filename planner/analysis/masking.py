@@ -27,12 +27,15 @@ open from :data:`~planner.analysis.estimate.CONTEXT_S` before its span to as lon
 
 from __future__ import annotations
 
-import warnings
+import dataclasses
+import importlib
 from collections.abc import Iterable, Iterator, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 from pystoi import stoi as pystoi_stoi
+from pystoi import utils as stoi_utils
 
 from planner._typing import FloatArray
 from planner.analysis.channels import detection_signal
@@ -72,6 +75,11 @@ if TYPE_CHECKING:
 
 __all__ = ["score_cues", "verdict"]
 
+#: pystoi's module (its rate, frame and segment constants; the package exports the function under the same name).
+_PYSTOI = importlib.import_module("pystoi.stoi")
+#: STOI jobs that may wait for the thread before the pass waits for the oldest (each holds a cue's audio).
+_STOI_WAITING = 8
+
 
 class _ScoringPass:
     """State of the streaming pass; :meth:`feed` every block, then :meth:`finish`."""
@@ -104,6 +112,9 @@ class _ScoringPass:
         self.frames_done = 0
         self.samples_done = 0
         self.clip_carry = np.zeros(CLIP_RUN - 1, dtype=bool)
+        # STOI (stems only) in a thread beside the pass: (cue index, its STOI job), oldest first
+        self.stoi_pool = ThreadPoolExecutor(1, thread_name_prefix="cueplan-stoi") if kind == "stems" else None
+        self.stoi_jobs: list[tuple[int, Future[tuple[float | None, str]]]] = []
 
     # ----------------------------------------------------------------- streaming
 
@@ -146,7 +157,13 @@ class _ScoringPass:
         self._frames(self.features.flush(bands))
         self._open(None)
         self._close(final=True)
+        self._collect_stoi(0)
         return tuple(self.scores[i] for i in sorted(self.scores))
+
+    def close(self) -> None:
+        """Stop the STOI thread (after :meth:`finish`, or when the pass is abandoned)."""
+        if self.stoi_pool is not None:
+            self.stoi_pool.shutdown(wait=True, cancel_futures=True)
 
     def _names(self) -> list[str]:
         if self.kind == "stems":
@@ -203,9 +220,25 @@ class _ScoringPass:
         for cue in self.open:
             if final or (cue.e1 <= self.frames_done and cue.s1 <= self.samples_done):
                 self.scores[cue.timing.index] = self._score(cue)
+                if self.stoi_pool is not None and cue.n_speech:
+                    self.stoi_jobs.append((cue.timing.index, self.stoi_pool.submit(_stoi, cue, self.info.sample_rate_hz)))
             else:
                 still.append(cue)
         self.open = still
+        self._collect_stoi(_STOI_WAITING)
+
+    def _collect_stoi(self, keep: int) -> None:
+        """Put the STOI of the oldest jobs into their scores until at most ``keep`` are left.
+
+        The STOI note goes first in the reason, as the other notes of a stems score follow it.
+        """
+        while len(self.stoi_jobs) > keep:
+            index, job = self.stoi_jobs.pop(0)
+            value, note = job.result()
+            score = self.scores[index]
+            if score.method != "none":
+                reason = "; ".join(part for part in (note, score.reason) if part)
+                self.scores[index] = dataclasses.replace(score, stoi=value, reason=reason)
 
     # ----------------------------------------------------------------- scores
 
@@ -225,17 +258,14 @@ class _ScoringPass:
         mean = cue.means()
         notes: list[str] = []
         if self.kind == "stems":
+            # STOI comes from the thread (_close, _collect_stoi)
             speech, background = mean["speech"], mean["background"]
             fold = (mean["speech_fold"], mean["background_fold"]) if self.info.layout == "5.1" else None
             rows = np.vstack(cue.esii_rows) if cue.esii_rows else np.zeros((0, N_BANDS))
             confidence = 1.0
-            stoi_value, stoi_note = self._stoi(cue)
-            if stoi_note:
-                notes.append(stoi_note)
         else:
             speech, background, fold, rows, confidence, est_notes = self._estimate(cue, mean)
             notes.extend(est_notes)
-            stoi_value = None
             notes.append("no STOI: it needs the clean dialogue (stems)")
         if not speech[FLAT] > 0.0:
             what = "the dialogue stem" if self.kind == "stems" else "the programme"
@@ -268,7 +298,7 @@ class _ScoringPass:
             sbld_lu=lv.sbld_lu,
             sii=sii_value,
             sii_short=sii_short,
-            stoi=stoi_value,
+            stoi=None,
             confidence=confidence,
             verdict=result,
             reason="; ".join(notes),
@@ -306,16 +336,24 @@ class _ScoringPass:
             rows = est.background[None, :N_BANDS]
         return est.speech, est.background, fold, rows, est.confidence, list(est.notes)
 
-    def _stoi(self, cue: CueAccumulator) -> tuple[float | None, str]:
-        if not cue.keep_audio:
-            return None, f"no STOI: the span must be {STOI_MIN_S:g}-{STOI_MAX_S:g} s long"
-        clean, degraded = np.concatenate(cue.clean), np.concatenate(cue.degraded)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            value = float(pystoi_stoi(clean, degraded, self.info.sample_rate_hz))
-        if any(issubclass(w.category, RuntimeWarning) for w in caught):
-            return None, "no STOI: too little dialogue above silence in the span"
-        return value, ""
+def _stoi(cue: CueAccumulator, sample_rate_hz: int) -> tuple[float | None, str]:
+    """STOI of a cue's mono mix against its clean dialogue (pystoi), or None and why not.
+
+    Runs in a thread, so pystoi's warning for too few frames left after its silent-frame
+    removal cannot be caught (the warnings filters are process-wide): the same steps of
+    pystoi (resampling to its rate, silent-frame removal, STFT) count the frames first, and
+    pystoi then gets the resampled signals, which gives what it gives for the originals.
+    """
+    if not cue.keep_audio:
+        return None, f"no STOI: the span must be {STOI_MIN_S:g}-{STOI_MAX_S:g} s long"
+    clean, degraded = np.concatenate(cue.clean), np.concatenate(cue.degraded)
+    if sample_rate_hz != _PYSTOI.FS:
+        clean = stoi_utils.resample_oct(clean, _PYSTOI.FS, sample_rate_hz)
+        degraded = stoi_utils.resample_oct(degraded, _PYSTOI.FS, sample_rate_hz)
+    kept, _ = stoi_utils.remove_silent_frames(clean, degraded, _PYSTOI.DYN_RANGE, _PYSTOI.N_FRAME, _PYSTOI.N_FRAME // 2)
+    if stoi_utils.stft(kept, _PYSTOI.N_FRAME, _PYSTOI.NFFT, overlap=2).shape[0] < _PYSTOI.N:
+        return None, "no STOI: too little dialogue above silence in the span"
+    return float(pystoi_stoi(clean, degraded, _PYSTOI.FS)), ""
 
 
 def score_cues(
@@ -367,10 +405,13 @@ def score_cues(
     report = progress or no_progress
     scoring = _ScoringPass(info, kind, timings, activity, settings)
     given = None if bands is None else iter(bands)
-    for block in blocks:
-        scoring.feed(block, None if given is None else _next_bands(given))
-        report("scoring", scoring.samples_done / info.sample_rate_hz, info.duration_s)
-    return scoring.finish(None if given is None else _next_bands(given))
+    try:
+        for block in blocks:
+            scoring.feed(block, None if given is None else _next_bands(given))
+            report("scoring", scoring.samples_done / info.sample_rate_hz, info.duration_s)
+        return scoring.finish(None if given is None else _next_bands(given))
+    finally:
+        scoring.close()
 
 
 def _next_bands(given: Iterator[list[FloatArray]]) -> list[FloatArray]:
