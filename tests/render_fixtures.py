@@ -129,3 +129,14 @@ def si_sdr_db(reference: np.ndarray, estimate: np.ndarray) -> float:
     alpha = (e @ s) / (s @ s)
     target = alpha * s
     return float(10.0 * np.log10((target @ target) / np.sum((e - target) ** 2)))
+
+
+def reduce_in_blocks(reducer, mix: np.ndarray, parts: np.ndarray, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """A MixReducer run over ``mix`` (and its known ``parts``) in blocks of ``block`` frames, flushed."""
+    outs, comps = [], []
+    for a in range(0, mix.shape[0], block):
+        o, c = reducer.process(mix[a : a + block], parts[:, a : a + block])
+        outs.append(o)
+        comps.append(c)
+    o, c = reducer.flush(2)
+    return np.concatenate([*outs, o]), np.concatenate([*comps, c], axis=1)

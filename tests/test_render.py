@@ -19,7 +19,7 @@ import numpy as np
 import pyloudnorm
 import pytest
 import soundfile as sf
-from render_fixtures import OnDisk, event, make_plan, si_sdr_db, truth_activity, write
+from render_fixtures import OnDisk, event, make_plan, reduce_in_blocks, si_sdr_db, truth_activity, write
 from scipy.signal import resample_poly
 
 from planner.demo.synth import synth_programme
@@ -157,13 +157,7 @@ def test_mix_only_reduction_against_the_true_stems(layout: str, background: str,
     events = [event(i + 1, *prog.speech_truth[i], cut_db=cut_db) for i in (1, 2)]
     reducer = MixReducer(GainEnvelope(events, fs, "background"), layout=prog.layout, activity=truth_activity(prog))
     mix, parts = prog.mix, np.stack([prog.dialogue, prog.background])
-    outs, comps = [], []
-    for a in range(0, mix.shape[0], 30_000):
-        o, c = reducer.process(mix[a : a + 30_000], parts[:, a : a + 30_000])
-        outs.append(o)
-        comps.append(c)
-    o, c = reducer.flush(2)
-    out, comp = np.concatenate([*outs, o]), np.concatenate([*comps, c], axis=1)
+    out, comp = reduce_in_blocks(reducer, mix, parts, 30_000)
     assert out.shape == mix.shape
     np.testing.assert_allclose(out, comp[0] + comp[1], atol=1e-6)  # the parts add up to the output
     bg_in = bg_out = 0.0
