@@ -224,17 +224,29 @@ class ProgrammeFeatures:
             return self._signals_of(dialogue) + self._signals_of(background)
         return self._signals_of(block.mix.astype(np.float64))
 
-    def band_powers(self, block: ProgrammeBlock) -> list[FloatArray]:
-        """Band powers of the frames this block completes, one array per analysed signal.
+    def offloaded(self) -> range:
+        """The signals whose whole features :meth:`band_powers` computes (the second half)."""
+        n = len(self._signals)
+        return range(n - n // 2, n)
 
-        The costly part of :meth:`process`, for another process to compute: another
+    def band_powers(self, block: ProgrammeBlock) -> list[FloatArray]:
+        """The costly part of :meth:`process`, for another process to compute.
+
+        One array per analysed signal, for the frames this block completes: the band powers
+        ``(n, 18)``, or for the :meth:`offloaded` signals the whole feature vectors
+        ``(n, N_FEATURES)``, so that the two processes share the K-weighting. Another
         instance's ``process(block, bands=...)`` then gives exactly what it gives alone.
         """
-        return [s.band_powers(a) for s, a in zip(self._signals, self._arrays(block))]
+        offloaded = self.offloaded()
+        return [
+            s.process(a) if i in offloaded else s.band_powers(a)
+            for i, (s, a) in enumerate(zip(self._signals, self._arrays(block)))
+        ]
 
     def flush_band_powers(self) -> list[FloatArray]:
-        """The band powers of the last frames, as :meth:`band_powers` after the final block."""
-        return [s.flush_band_powers() for s in self._signals]
+        """What :meth:`band_powers` gives for the last frames, after the final block."""
+        offloaded = self.offloaded()
+        return [s.flush() if i in offloaded else s.flush_band_powers() for i, s in enumerate(self._signals)]
 
     def process(self, block: ProgrammeBlock, bands: list[FloatArray] | None = None) -> dict[str, FloatArray]:
         """Views of the frames completed by this block, each ``(n_frames, N_FEATURES)``.
@@ -242,10 +254,16 @@ class ProgrammeFeatures:
         ``bands``: this block's :meth:`band_powers` if computed elsewhere.
         """
         arrays = self._arrays(block)
-        given = bands if bands is not None else [None] * len(arrays)
-        return self._views([s.process(a, b) for s, a, b in zip(self._signals, arrays, given)])
+        if bands is None:
+            return self._views([s.process(a) for s, a in zip(self._signals, arrays)])
+        offloaded = self.offloaded()
+        return self._views(
+            [b if i in offloaded else s.process(a, b) for i, (s, a, b) in enumerate(zip(self._signals, arrays, bands))]
+        )
 
     def flush(self, bands: list[FloatArray] | None = None) -> dict[str, FloatArray]:
         """Views of the last frames after the final block (``bands``: :meth:`flush_band_powers`)."""
-        given = bands if bands is not None else [None] * len(self._signals)
-        return self._views([s.flush(b) for s, b in zip(self._signals, given)])
+        if bands is None:
+            return self._views([s.flush() for s in self._signals])
+        offloaded = self.offloaded()
+        return self._views([b if i in offloaded else s.flush(b) for i, (s, b) in enumerate(zip(self._signals, bands))])

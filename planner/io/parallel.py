@@ -3,10 +3,11 @@
 Pass 1 (:func:`speech_worker`): the speech detector reads the detection signal in a second
 process (and, from a mix, meters its true peak there too) while the caller meters the
 loudness. Pass 2 (:func:`band_worker`): the band powers of
-every analysed signal (the costly part of the frame features,
-:meth:`planner.analysis.features.ProgrammeFeatures.band_powers`) are computed in a second
-process and sent back block by block through a bounded queue, while the caller computes
-the K-weighted and flat powers, tracks the noise and accumulates the cues. Each worker reads the files on its own (the operating
+every analysed signal and the K-weighted and flat powers of half of them (the costly part
+of the frame features, :meth:`planner.analysis.features.ProgrammeFeatures.band_powers`)
+are computed in a second process and sent back block by block through a bounded queue,
+while the caller computes the other half's K-weighted and flat powers, tracks the noise
+and accumulates the cues. Each worker reads the files on its own (the operating
 system's cache serves the second read), computes exactly what the single-process code
 computes, in the same order, so results are identical. The queue holds at most
 :data:`QUEUE_BLOCKS` blocks, so memory stays constant whatever the programme length.
