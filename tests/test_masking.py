@@ -54,6 +54,7 @@ def _score(
     activity: SpeechActivity | None = None,
     settings: AnalysisSettings | None = None,
     block: int = 30011,
+    stoi: bool = True,
 ) -> tuple[CueScore, ...]:
     n = dialogue.shape[0]
     info = AudioInfo(FS, dialogue.shape[1], n, layout, "WAV", "FLOAT", None)  # type: ignore[arg-type]
@@ -70,6 +71,7 @@ def _score(
         timings=timings,
         activity=activity or _activity(-(-n // HOP)),
         settings=settings or AnalysisSettings(),
+        stoi=stoi,
     )
 
 
@@ -199,6 +201,18 @@ def test_stoi_equals_pystoi_called_directly(rng: np.random.Generator) -> None:
     mixed = (speech.astype(np.float32) + bg.astype(np.float32))[s0:s1].astype(np.float64).mean(axis=1)
     expected = pystoi_stoi(clean.astype(np.float32), mixed.astype(np.float32), FS)
     assert score.stoi == pytest.approx(expected, abs=1e-6)
+
+
+def test_without_stoi_the_other_scores_are_the_same(rng: np.random.Generator) -> None:
+    # Ground truth: the same stems scored with STOI; only the STOI and its note may differ.
+    n = 3 * FS
+    speech = _spread([0.05 * rng.standard_normal(n)] * 2, "stereo")
+    bg = _spread([0.02 * rng.standard_normal(n)] * 2, "stereo")
+    timings = [_timing(1, 0.3, 2.7)]
+    (full,) = _score(speech, bg, timings, layout="stereo")
+    (bare,) = _score(speech, bg, timings, layout="stereo", stoi=False)
+    assert full.stoi is not None and bare.stoi is None
+    assert bare.to_dict() == {**full.to_dict(), "stoi": None}
 
 
 def test_stoi_is_none_with_a_reason_for_a_short_cue(rng: np.random.Generator) -> None:

@@ -91,6 +91,7 @@ class _ScoringPass:
         timings: Sequence[CueTiming],
         activity: SpeechActivity,
         settings: AnalysisSettings,
+        stoi: bool,
     ) -> None:
         self.info, self.kind, self.activity = info, kind, activity
         self.frame_s = activity.frame_s
@@ -113,7 +114,7 @@ class _ScoringPass:
         self.samples_done = 0
         self.clip_carry = np.zeros(CLIP_RUN - 1, dtype=bool)
         # STOI (stems only) in a thread beside the pass: (cue index, its STOI job), oldest first
-        self.stoi_pool = ThreadPoolExecutor(1, thread_name_prefix="cueplan-stoi") if kind == "stems" else None
+        self.stoi_pool = ThreadPoolExecutor(1, thread_name_prefix="cueplan-stoi") if stoi and kind == "stems" else None
         self.stoi_jobs: list[tuple[int, Future[tuple[float | None, str]]]] = []
 
     # ----------------------------------------------------------------- streaming
@@ -366,6 +367,7 @@ def score_cues(
     settings: AnalysisSettings,
     progress: Progress | None = None,
     bands: Iterable[list[FloatArray]] | None = None,
+    stoi: bool = True,
 ) -> tuple[CueScore, ...]:
     """Score every cue for masking in one pass over the programme's blocks.
 
@@ -390,6 +392,9 @@ def score_cues(
         ``ProgrammeFeatures(info, kind, frame_s=activity.frame_s)``'s ``band_powers(block)``
         for every block, then its ``flush_band_powers()``. Computed here when omitted; the
         scores are the same.
+    stoi : bool
+        Compute STOI from stems (default); False leaves every ``stoi`` None (no reason
+        given), for callers that read only the SII and the levels.
 
     Returns
     -------
@@ -403,7 +408,7 @@ def score_cues(
         ``bands`` ends before the blocks do.
     """
     report = progress or no_progress
-    scoring = _ScoringPass(info, kind, timings, activity, settings)
+    scoring = _ScoringPass(info, kind, timings, activity, settings, stoi)
     given = None if bands is None else iter(bands)
     try:
         for block in blocks:

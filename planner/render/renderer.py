@@ -24,11 +24,12 @@ import os
 import queue
 import tempfile
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -54,8 +55,8 @@ _LIMIT_MARGIN_DB = 0.2
 _CORRECTION_PASSES = 3
 #: A correction below this is taken as settled, LU.
 _CORRECTION_LU = 0.02
-#: Pieces of output that may wait for the metering thread.
-_METER_QUEUE = 4
+#: Pieces of output that may wait for a metering or writing thread.
+_QUEUED_PIECES = 4
 
 
 @dataclass(frozen=True)
@@ -364,16 +365,17 @@ class _Passes:
         ``record`` keeps a mix's processed output for the later passes (class docstring).
         """
         before = self._meter() if with_input else None
+        after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
         limiter = None if ceiling is None else TruePeakLimiter(self._info.sample_rate_hz, self._info.n_channels, ceiling_dbtp=ceiling)
-        with _MeterThread(self._meter()) as after:
+        with _Consumer(partial(_feed, after)) as metering:
             for inp, out, _ in self._pieces(stage, record=record):
                 if before is not None and inp is not None:
                     _feed(before, inp)
                 y = out if gain == 1.0 else out * gain
-                after.feed(y if limiter is None else limiter.process(y))
+                metering.put(y if limiter is None else limiter.process(y))
             if limiter is not None:
-                after.feed(limiter.flush())
+                metering.put(limiter.flush())
         return (None if before is None else before.summary()), after.summary()
 
     def correct_for_limiter(
@@ -403,24 +405,33 @@ class _Passes:
     ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
         """The writing pass: process, gain, limit, write (and measure the input when asked, and the output)."""
         before = self._meter() if with_input else None
+        after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
-        with _MeterThread(self._meter()) as after, outputs.opened() as (writer, stem_writers):
+        with outputs.opened() as (writer, stem_writers), _Consumer(partial(_feed, after)) as metering, _Consumer(
+            partial(_write_stems, stem_writers)
+        ) as stems_out:
 
             def emit(y: AudioArray) -> None:
                 if y.shape[0]:
                     writer.write(y)
-                    after.feed(y)
+                    metering.put(y)
 
             for inp, out, stems in self._pieces("render: writing"):
                 if before is not None and inp is not None:
                     _feed(before, inp)
                 y = out if gain == 1.0 else out * gain
                 emit(y if limiter is None else limiter.process(y))
-                for w, s in zip(stem_writers, stems or ()):
-                    w.write(s if gain == 1.0 else s * gain)
+                if stem_writers and stems is not None:
+                    stems_out.put(stems if gain == 1.0 else tuple(s * gain for s in stems))
             if limiter is not None:
                 emit(limiter.flush())
         return (None if before is None else before.summary()), after.summary()
+
+
+def _write_stems(writers: list[AudioWriter], stems: tuple[AudioArray, ...]) -> None:
+    """Append one piece of each processed stem to its writer."""
+    for w, x in zip(writers, stems):
+        w.write(x)
 
 
 def _feed(meter: LoudnessMeter, x: AudioArray) -> None:
@@ -429,47 +440,44 @@ def _feed(meter: LoudnessMeter, x: AudioArray) -> None:
         meter.feed(x)
 
 
-class _MeterThread:
-    """A loudness meter fed by a thread, so that metering the output overlaps making it.
+class _Consumer:
+    """A thread that hands each queued piece to ``consume``, so that metering and writing
+    overlap making the output.
 
-    The K-weighting (compiled, :mod:`planner.analysis.iir`) and numpy's loops over large
-    arrays release the interpreter lock, so the thread runs on the second core. Pieces go
-    through a bounded queue (at most :data:`_METER_QUEUE` waiting: constant memory) and
-    must not be changed after :meth:`feed`. Leaving the ``with`` block waits for the
-    thread; an error in it is raised there; :meth:`summary` reads the meter afterwards.
+    The K-weighting (compiled, :mod:`planner.analysis.iir`), numpy's loops over large
+    arrays and libsndfile's writes release the interpreter lock, so the thread runs on the
+    other core. Pieces go through a bounded queue (at most :data:`_QUEUED_PIECES` waiting:
+    constant memory) and must not be changed after :meth:`put`. Leaving the ``with`` block
+    waits for the thread; an error in it is raised there.
     """
 
-    def __init__(self, meter: LoudnessMeter) -> None:
-        self._meter = meter
-        self._queue: queue.Queue[AudioArray | None] = queue.Queue(maxsize=_METER_QUEUE)
+    def __init__(self, consume: Callable[[Any], None]) -> None:
+        self._consume = consume
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=_QUEUED_PIECES)
         self._error: BaseException | None = None
-        self._thread = threading.Thread(target=self._run, name="cueplan-meter", daemon=True)
+        self._thread = threading.Thread(target=self._run, name="cueplan-render", daemon=True)
 
     def _run(self) -> None:
-        while (x := self._queue.get()) is not None:
+        while (piece := self._queue.get()) is not None:
             if self._error is None:
                 try:
-                    _feed(self._meter, x)
+                    self._consume(piece)
                 except BaseException as exc:  # raised again by __exit__ in the caller
                     self._error = exc
 
-    def __enter__(self) -> _MeterThread:
+    def __enter__(self) -> _Consumer:
         self._thread.start()
         return self
 
-    def feed(self, x: AudioArray) -> None:
-        """Queue a piece for metering (blocks while the queue is full)."""
-        self._queue.put(x)
+    def put(self, piece: Any) -> None:
+        """Queue a piece (blocks while the queue is full)."""
+        self._queue.put(piece)
 
     def __exit__(self, *exc: object) -> None:
         self._queue.put(None)
         self._thread.join()
         if self._error is not None and exc[0] is None:
             raise self._error
-
-    def summary(self) -> LoudnessSummary:
-        """The meter's figures, after the ``with`` block."""
-        return self._meter.summary()
 
 
 def _process(

@@ -180,6 +180,8 @@ class MixReducer:
         self._layout = layout
         self._n_ch = {"mono": 1, "stereo": 2, "5.1": 6}[layout]
         self._activity = activity
+        # speech frames of the activity up to each frame, for the gate of any span of frames
+        self._speech_counts = None if activity is None else np.concatenate([[0], np.cumsum(activity.is_speech, dtype=np.int64)])
         default = _SMOOTH_DEFAULT
         self._smooth = (
             _SMOOTH_TARGET.get(layout, default[0]),
@@ -440,7 +442,8 @@ class MixReducer:
         half = self._n / (2 * fs) + _SPEECH_PAD_S
         lo = np.clip(np.floor((centres_s - half) / act.frame_s).astype(np.int64), 0, act.n_frames)
         hi = np.clip(np.ceil((centres_s + half) / act.frame_s).astype(np.int64), 0, act.n_frames)
-        counts = np.concatenate([[0], np.cumsum(act.is_speech.astype(np.int64))])
+        counts = self._speech_counts
+        assert counts is not None
         return ((counts[hi] - counts[lo]) > 0).astype(np.float32)
 
 

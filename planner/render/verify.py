@@ -149,6 +149,7 @@ def verify(
         measured = score_cues(
             iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
             activity=plan.analysis.activity, settings=settings, progress=progress, bands=bands,
+            stoi=False,  # the rows compare SII or level differences only
         )  # fmt: skip
     by_index = {s.index: s for s in measured}
     before = {s.index: s for s in plan.analysis.scores}
