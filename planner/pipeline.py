@@ -26,7 +26,7 @@ from planner.analysis.vad import make_detector
 from planner.folder import Inputs, relative_path
 from planner.io.audio import Programme, iter_programme, open_programme
 from planner.io.files import sha256_file
-from planner.io.parallel import band_worker, speech_source, speech_worker, use_workers
+from planner.io.parallel import band_worker, peaks_beside_speech, speech_source, speech_worker, use_workers
 from planner.io.subtitles import read_subtitles
 from planner.model import (
     SCHEMA_VERSION,
@@ -117,15 +117,15 @@ def measure(programme: Programme, settings: AnalysisSettings, *, progress: Progr
     """Pass 1: programme loudness and the speech track.
 
     With two or more cores and a programme of at least a minute, the speech detector reads
-    the audio in a second process (metering a mix's true peak there too) while this one
-    meters the loudness (:mod:`planner.io.parallel`); otherwise one read feeds both. The
-    results are the same.
+    the audio in a second process (metering a mix's true peak there too with the fast
+    detector) while this one meters the loudness (:mod:`planner.io.parallel`); otherwise
+    one read feeds both. The results are the same.
     """
     progress = progress or no_progress
     info = programme.info
     workers = use_workers(programme)
-    # from a mix, the worker meters the true peak (a third of the meter's work)
-    meter = LoudnessMeter(info.sample_rate_hz, info.layout, true_peak=not (workers and programme.kind == "mix"))
+    # the worker may meter the true peak (a third of the meter's work) to even out the load
+    meter = LoudnessMeter(info.sample_rate_hz, info.layout, true_peak=not (workers and peaks_beside_speech(programme, settings)))
     with contextlib.ExitStack() as stack:
         detector = None
         if workers:

@@ -1,8 +1,8 @@
 """Both passes over the audio on two cores: worker processes that read the programme themselves.
 
 Pass 1 (:func:`speech_worker`): the speech detector reads the detection signal in a second
-process (and, from a mix, meters its true peak there too) while the caller meters the
-loudness. Pass 2 (:func:`band_worker`): the band powers of
+process (and, from a mix with the fast detector, meters its true peak there too) while the
+caller meters the loudness. Pass 2 (:func:`band_worker`): the band powers of
 every analysed signal and the K-weighted and flat powers of half of them (the costly part
 of the frame features, :meth:`planner.analysis.features.ProgrammeFeatures.band_powers`)
 are computed in a second process and sent back block by block through a bounded queue,
@@ -101,10 +101,17 @@ def _run(target: Callable[..., Any], args: tuple[Any, ...], out: Any) -> None:
         out.put(("error", exc))
 
 
+def peaks_beside_speech(programme: Programme, settings: AnalysisSettings) -> bool:
+    """Whether the speech worker meters the true peak too: from a mix (it reads the mix
+    anyway) with the fast detector (the neural one already makes it the longer process)."""
+    return programme.kind == "mix" and settings.vad == "fast"
+
+
 def _speech_items(
     programme: Programme, settings: AnalysisSettings
 ) -> Iterator[tuple[SpeechActivity, TruePeakMeter | None]]:
-    peaks = TruePeakMeter(programme.info.sample_rate_hz, programme.info.n_channels) if programme.kind == "mix" else None
+    info = programme.info
+    peaks = TruePeakMeter(info.sample_rate_hz, info.n_channels) if peaks_beside_speech(programme, settings) else None
     yield detect_programme_speech(programme, settings, peaks), peaks
 
 
@@ -155,8 +162,8 @@ def speech_worker(
 ) -> Iterator[Callable[[], tuple[SpeechActivity, TruePeakMeter | None]]]:
     """Start :func:`detect_programme_speech` in a second process; the context gives a function that waits for it.
 
-    The function returns the speech track and, for a mix programme, the true-peak meter
-    fed the mix (None for stems: the caller meters their sum itself).
+    The function returns the speech track and, where :func:`peaks_beside_speech`, the
+    true-peak meter fed the mix (else None: the caller meters the peaks itself).
     """
     with _worker(_speech_items, (programme, settings), 1) as items:
         yield lambda: next(items)
