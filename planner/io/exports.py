@@ -23,7 +23,7 @@ from typing import Any
 import jsonschema
 
 from planner.errors import PlanFileError
-from planner.io.files import atomic_write_text, sha256_file
+from planner.io.files import atomic_output, atomic_write_text, sha256_file
 from planner.io.timeline import TimecodeClock, write_edl, write_otio
 from planner.model import SCHEMA_VERSION, GainEvent, Plan
 
@@ -323,7 +323,8 @@ def write_exports(plan: Plan, out_dir: str | Path, *, inputs: Iterable[str | Pat
         "edl": out / "plan.edl",
     }
     inputs = tuple(inputs)
-    atomic_write_text(paths["plan"], plan_json(plan), inputs=inputs)
+    with atomic_output(paths["plan"], inputs=inputs) as tmp, tmp.open("w", encoding="utf-8", newline="\n") as f:
+        f.writelines(plan_json_chunks(plan))  # plan_json piece by piece: no copy of the whole text
     write_cues_csv(plan, paths["cues"], inputs=inputs)
     write_events_csv(plan, paths["events"], inputs=inputs)
     write_otio(plan, paths["otio"], inputs=inputs)

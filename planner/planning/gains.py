@@ -124,6 +124,10 @@ def split(move: np.ndarray, caps: _Caps, kind: str) -> tuple[np.ndarray, np.ndar
     return move - cut, cut
 
 
+#: Cues scored together by :class:`Scorer` (bounds its working memory).
+_SCORER_ROWS = 128
+
+
 class Scorer:
     """Predicted score of cues after a lift and a cut: ANSI S3.5 SII, or loudness difference in LU."""
 
@@ -144,13 +148,21 @@ class Scorer:
         return ~(np.isnan(self.e).any(axis=1) | np.isnan(self.n).any(axis=1))
 
     def __call__(self, rows: np.ndarray, lift: np.ndarray, cut: np.ndarray) -> np.ndarray:
-        """Scores of cues ``rows`` (n,) for lifts and cuts in tenths of shape (n, g)."""
+        """Scores of cues ``rows`` (n,) for lifts and cuts in tenths of shape (n, g).
+
+        SII in slices of :data:`_SCORER_ROWS` cues, so that the working arrays (a few per
+        cue, step and band) do not grow with the number of cues.
+        """
         lift_db, cut_db = lift * STEP_DB, cut * STEP_DB
         if self.kind == "lu":
             return self.sbld[rows, None] + lift_db + cut_db  # both gains add to the difference
-        e = self.e[rows, None, :] + lift_db[..., None]
-        n = self.n[rows, None, :] - cut_db[..., None]
-        return np.asarray(sii(e, n, self.t)).reshape(lift.shape)
+        out = np.empty(lift.shape)
+        for lo in range(0, len(rows), _SCORER_ROWS):
+            part = slice(lo, lo + _SCORER_ROWS)
+            e = self.e[rows[part], None, :] + lift_db[part, :, None]
+            n = self.n[rows[part], None, :] - cut_db[part, :, None]
+            out[part] = np.asarray(sii(e, n, self.t)).reshape(e.shape[:2])
+        return out
 
     def quiet(self, rows: np.ndarray) -> np.ndarray:
         """SII of cues ``rows`` with no background at all (S3.5 clause 4.2 default noise)."""
