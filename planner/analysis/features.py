@@ -67,7 +67,7 @@ class FrameFeatures:
         self._sosfilt = sosfilt
         self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
         self._sos = k_weighting_sos(sample_rate_hz)
-        self._zi = np.zeros((self._sos.shape[0], 2))
+        self._zi: FloatArray = np.zeros((self._sos.shape[0], 2))
         self._hop = frame_s * sample_rate_hz
         self._n_seen = 0
         self._next_frame = 0  # next K/flat frame to complete

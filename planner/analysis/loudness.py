@@ -188,7 +188,7 @@ class LoudnessMeter:
         self._metered = [i for i, w in enumerate(weights) if w > 0.0]
         self._weights = np.array([weights[i] for i in self._metered])
         self._step = nearest_int(_STEP_S * sample_rate_hz)
-        self._zi = np.zeros((self._sos.shape[0], len(self._metered), 2))
+        self._zi: FloatArray = np.zeros((self._sos.shape[0], len(self._metered), 2))
         self._pending = np.zeros((len(self._metered), 0))  # squares of the unfinished step
         self._work = np.zeros((len(self._metered), 0))
         self._step_sums: list[np.ndarray] = []
