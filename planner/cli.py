@@ -14,6 +14,7 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
 
 import contextlib
+import errno
 import json
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -74,6 +75,15 @@ def _errors() -> Iterator[None]:
         _fail(str(exc), EXIT_BAD_INPUT)
     except CueplanError as exc:
         _fail(str(exc), EXIT_FAILED)
+    except OSError as exc:
+        if exc.errno != errno.ENOSPC:
+            raise
+        _fail(
+            f"the disk is full ({exc.filename or 'while writing'}); nothing was written under the final names. "
+            "Free space and run again: a render needs room for its output (about 1 GB per hour of 24-bit "
+            "stereo) and as much again for its scratch copy (1.4 GB per hour of stereo, 4 GB of 5.1)",
+            EXIT_FAILED,
+        )
     except KeyboardInterrupt:
         _fail("interrupted; nothing was written under the final names", 130)
 

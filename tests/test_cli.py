@@ -227,6 +227,28 @@ def test_render_refuses_to_write_over_an_input(analysed_stems: Path, episode: di
     assert episode["dialogue"].read_bytes() == before
 
 
+def test_a_full_disk_is_one_clear_line_and_leaves_no_output(
+    analysed_stems: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Ground truth: the test makes every audio write fail as a full disk does (ENOSPC).
+    import errno
+    import os
+
+    from planner.io import audio_writer
+
+    def full(self: object, block: object) -> None:
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(tmp_path))
+
+    monkeypatch.setattr(audio_writer.AudioWriter, "write", full)
+    rendered = tmp_path / "clearer.wav"
+    code, out = _run("render", analysed_stems, "--out", rendered, "--quiet")
+    assert code == 1, out
+    assert "the disk is full" in out and "Free space and run again" in out
+    assert "Traceback" not in out
+    assert not rendered.exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temporary left behind
+
+
 def test_render_refuses_audio_that_is_not_the_plans(episode: dict[str, Path], tmp_path: Path) -> None:
     import shutil
 
