@@ -19,7 +19,7 @@ from typing import Any
 
 from planner.analysis.align import align, time_cues
 from planner.analysis.channels import detection_signal
-from planner.analysis.checks import HouseStyle, load_style
+from planner.analysis.checks import MIN_REPORT_CONFIDENCE, HouseStyle, load_style
 from planner.analysis.loudness import LoudnessMeter
 from planner.analysis.masking import score_cues
 from planner.analysis.vad import make_detector
@@ -151,17 +151,31 @@ def align_cues(
     info: AudioInfo,
     settings: AnalysisSettings,
     style: HouseStyle,
-) -> tuple[Alignment, tuple[CueTiming, ...], tuple[UncoveredSpeech, ...]]:
-    """Map subtitle time onto audio time, snap each cue, and flag every cue problem."""
+) -> tuple[Alignment, tuple[CueTiming, ...], tuple[UncoveredSpeech, ...], tuple[UncoveredSpeech, ...]]:
+    """Map subtitle time onto audio time, snap each cue, and flag every cue problem.
+
+    Returns the alignment, the cue timings, the uncovered speech to report and the uncovered
+    speech judged likely background (confidence under ``MIN_REPORT_CONFIDENCE``), which
+    only a warning mentions.
+    """
     alignment = align(cues, activity, max_offset_s=settings.max_offset_s, duration_s=info.duration_s)
-    timings, uncovered = time_cues(
-        cues, alignment, activity, style, snap_tolerance_s=settings.snap_tolerance_s, fps=settings.fps
-    )
-    return alignment, timings, uncovered
+    timings, every_run = time_cues(
+        cues, alignment, activity, style, snap_tolerance_s=settings.snap_tolerance_s, fps=settings.fps,
+        min_confidence=0.0,
+    )  # fmt: skip
+    reported = tuple(u for u in every_run if u.confidence >= MIN_REPORT_CONFIDENCE)
+    background_like = tuple(u for u in every_run if u.confidence < MIN_REPORT_CONFIDENCE)
+    return alignment, timings, reported, background_like
 
 
-def programme_warnings(loudness: LoudnessSummary, activity: SpeechActivity, alignment: Alignment) -> tuple[str, ...]:
-    """Plain-words warnings about the programme as a whole (silence, clipping, no speech, weak alignment)."""
+def programme_warnings(
+    loudness: LoudnessSummary,
+    activity: SpeechActivity,
+    alignment: Alignment,
+    background_like: Sequence[UncoveredSpeech] = (),
+) -> tuple[str, ...]:
+    """Plain-words warnings about the programme as a whole (silence, clipping, no speech, weak
+    alignment, speech without cues judged likely background)."""
     out: list[str] = []
     if loudness.integrated_lufs is None:
         out.append("the programme is silent (everything below the -70 LUFS gate); scores are not meaningful")
@@ -171,6 +185,14 @@ def programme_warnings(loudness: LoudnessSummary, activity: SpeechActivity, alig
         out.append("no speech was detected anywhere in the programme")
     out.extend(activity.notes)
     out.extend(alignment.notes)
+    if background_like:
+        total_s = sum(u.end_s - u.start_s for u in background_like)
+        starts = ", ".join(f"{u.start_s:.1f} s" for u in background_like[:3]) + (", ..." if len(background_like) > 3 else "")
+        out.append(
+            f"{len(background_like)} stretch(es) of speech with no cue ({total_s:.0f} s in all, from {starts}) "
+            "sounded like background (well under the dialogue's level, or crowd-like) and are not listed as "
+            "missing cues; listen to them if a line may be missing"
+        )
     return tuple(dict.fromkeys(out))
 
 
@@ -212,7 +234,7 @@ def analyse(
     programme, track = open_inputs(inputs)
     style = load_style(style_path)  # a bad profile fails before the long work
     activity, loudness = measure(programme, settings, progress=progress)
-    alignment, timings, uncovered = align_cues(track.cues, activity, programme.info, settings, style)
+    alignment, timings, uncovered, background_like = align_cues(track.cues, activity, programme.info, settings, style)
     scores = score_pass(programme, timings, activity, settings, progress=progress) if score else ()
     return Analysis(
         schema=SCHEMA_VERSION,
@@ -226,5 +248,5 @@ def analyse(
         timings=timings,
         uncovered=uncovered,
         scores=scores,
-        warnings=programme_warnings(loudness, activity, alignment),
+        warnings=programme_warnings(loudness, activity, alignment, background_like),
     )

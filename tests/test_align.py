@@ -406,3 +406,24 @@ def test_synthesized_programme_end_to_end() -> None:
     for (a, b), i in zip(found, (3, 7)):
         s, e = truth[i - 1]
         assert min(b, e) - max(a, s) > 0.9 * (e - s)
+
+
+def test_speech_judged_background_is_named_in_a_warning_not_listed() -> None:
+    # Ground truth constructed here: an uncovered 2 s run 7 dB under the cued speech (the
+    # level ramp leaves it confidence 0.25, under MIN_REPORT_CONFIDENCE), as in the test
+    # above; the whole analysis lists no missing cue but one warning names the stretch.
+    from planner import pipeline
+    from planner.model import AudioInfo, LoudnessSummary
+    from planner.settings import AnalysisSettings
+
+    spans = [(1.0, 3.5), (5.0, 7.0), (10.0, 12.0)]
+    cues = (Cue(1, "", 1.0, 3.8, "Covered."), Cue(2, "", 10.0, 12.3, "Covered too."))
+    act = _with_level(activity(spans, 14.0), [(1.0, 3.5, -20.0), (10.0, 12.0, -20.0), (5.0, 7.0, -27.0)])
+    info = AudioInfo(48000, 2, 14 * 48000, "stereo", "WAV", "PCM_24", None)
+    _, _, reported, background_like = pipeline.align_cues(cues, act, info, AnalysisSettings(vad="fast"), STYLE)
+    assert reported == ()
+    assert [(u.start_s, u.end_s) for u in background_like] == [(5.0, 7.0)]
+    loudness = LoudnessSummary(-23.0, 5.0, -3.0, -3.0, -20.0, -21.0, -22.0)
+    warnings = pipeline.programme_warnings(loudness, act, IDENTITY, background_like)
+    assert any(w.startswith("1 stretch(es) of speech with no cue (2 s in all, from 5.0 s)") for w in warnings)
+    assert not any("stretch(es)" in w for w in pipeline.programme_warnings(loudness, act, IDENTITY))

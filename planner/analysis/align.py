@@ -41,6 +41,7 @@ import numpy as np
 
 from planner._typing import FloatArray
 from planner.analysis.checks import (
+    MIN_REPORT_CONFIDENCE,
     HouseStyle,
     cps,
     cue_flags,
@@ -317,6 +318,7 @@ def time_cues(
     snap_tolerance_s: float = 0.5,
     fps: str = "25",
     use_crowd_evidence: bool = True,
+    min_confidence: float = MIN_REPORT_CONFIDENCE,
 ) -> tuple[tuple[CueTiming, ...], tuple[UncoveredSpeech, ...]]:
     """Map, snap and check every cue; find speech that no cue covers.
 
@@ -345,6 +347,8 @@ def time_cues(
         Video frame rate name (for the minimum gap in frames), e.g. ``"25"``.
     use_crowd_evidence : bool
         Apply the crowd rules above (off: the detector's mask everywhere).
+    min_confidence : float
+        Uncovered speech of lower confidence is left out (default: what is reported).
 
     Returns
     -------
@@ -428,5 +432,6 @@ def time_cues(
         steady if use_crowd_evidence else None,
         level_db=activity.level_db if use_crowd_evidence else None,
         frame_s=frame_s,
+        min_confidence=min_confidence,
     )
     return tuple(timings), uncovered

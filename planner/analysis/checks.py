@@ -287,6 +287,7 @@ def uncovered_speech(
     *,
     level_db: FloatArray | None = None,
     frame_s: float = ANALYSIS_FRAME_S,
+    min_confidence: float = MIN_REPORT_CONFIDENCE,
 ) -> tuple[UncoveredSpeech, ...]:
     """Runs with at least :data:`MIN_UNCOVERED_S` of ``speech`` outside every cue span.
 
@@ -295,7 +296,7 @@ def uncovered_speech(
     :data:`CROWD_CUT_NEAR` (no cut when ``steady`` is None), and by the run's level against
     the cued speech as described at :data:`LEVEL_KEEP_DB` (when ``level_db``, dB per frame,
     is given and the cues cover at least :data:`LEVEL_MIN_REFERENCE_S` of speech). Runs of
-    confidence under :data:`MIN_REPORT_CONFIDENCE` are left out.
+    confidence under ``min_confidence`` (default :data:`MIN_REPORT_CONFIDENCE`) are left out.
     """
     n = speech.size
     covered = np.zeros(n + 1, dtype=np.int32)
@@ -323,7 +324,7 @@ def uncovered_speech(
             conf *= 1.0 - share * (CROWD_CUT_NEAR if near else CROWD_CUT_FAR)
         if level_db is not None:
             conf *= _level_factor(level_db[s:e], free[s:e], reference_db)
-        if conf < MIN_REPORT_CONFIDENCE:
+        if conf < min_confidence:
             continue
         out.append(
             UncoveredSpeech(start_s=round(float(s * frame_s), 3), end_s=round(float(e * frame_s), 3), confidence=round(conf, 3))
