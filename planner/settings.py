@@ -51,7 +51,8 @@ def _check_choice(name: str, value: object, choices: tuple[object, ...]) -> None
         raise SettingsError(f"{name}={value!r} must be one of {listed}; pass one of those")
 
 
-def _check_range(name: str, value: float, lo: float, hi: float) -> None:
+def check_range(name: str, value: float, lo: float, hi: float) -> None:
+    """Refuse ``value`` outside ``[lo, hi]`` with the project's message (what is wrong; what to do)."""
     if not (lo <= value <= hi):
         raise SettingsError(f"{name}={value!r} must be between {lo} and {hi}; pass a value in that range")
 
@@ -92,9 +93,9 @@ class AnalysisSettings(_Settings):
         _check_choice("hearing", self.hearing, (*PROFILE_NAMES, "audiogram"))
         if self.hearing == "audiogram" and not self.audiogram_hz:
             raise SettingsError("hearing='audiogram' needs the audiogram's points; pass --audiogram FILE")
-        _check_range("listening_level_db_spl", self.listening_level_db_spl, 30.0, 100.0)
-        _check_range("snap_tolerance_s", self.snap_tolerance_s, 0.0, 5.0)
-        _check_range("max_offset_s", self.max_offset_s, 0.0, 600.0)
+        check_range("listening_level_db_spl", self.listening_level_db_spl, 30.0, 100.0)
+        check_range("snap_tolerance_s", self.snap_tolerance_s, 0.0, 5.0)
+        check_range("max_offset_s", self.max_offset_s, 0.0, 600.0)
         if len(self.audiogram_hz) != len(self.audiogram_db_hl):
             raise SettingsError("audiogram_hz and audiogram_db_hl must have the same length")
 
@@ -129,17 +130,17 @@ class PlanSettings(_Settings):
     def __post_init__(self) -> None:
         _check_choice("target_kind", self.target_kind, ("sii", "lu"))
         _check_choice("move", self.move, ("background", "dialogue", "both"))
-        _check_range("target_sii", self.target_sii, 0.0, 1.0)
-        _check_range("target_lu", self.target_lu, -20.0, 40.0)
-        _check_range("strength", self.strength, 0.0, 1.0)
-        _check_range("max_cut_db", self.max_cut_db, 0.0, 40.0)
-        _check_range("max_lift_db", self.max_lift_db, 0.0, 20.0)
-        _check_range("max_mix_cut_db", self.max_mix_cut_db, 0.0, 30.0)
-        _check_range("min_move_db", self.min_move_db, 0.0, 12.0)
-        _check_range("hold_s", self.hold_s, 0.0, 30.0)
-        _check_range("ramp_in_ms", self.ramp_in_ms, 1.0, 5000.0)
-        _check_range("ramp_out_ms", self.ramp_out_ms, 1.0, 5000.0)
-        _check_range("scene_gap_s", self.scene_gap_s, 0.0, 120.0)
+        check_range("target_sii", self.target_sii, 0.0, 1.0)
+        check_range("target_lu", self.target_lu, -20.0, 40.0)
+        check_range("strength", self.strength, 0.0, 1.0)
+        check_range("max_cut_db", self.max_cut_db, 0.0, 40.0)
+        check_range("max_lift_db", self.max_lift_db, 0.0, 20.0)
+        check_range("max_mix_cut_db", self.max_mix_cut_db, 0.0, 30.0)
+        check_range("min_move_db", self.min_move_db, 0.0, 12.0)
+        check_range("hold_s", self.hold_s, 0.0, 30.0)
+        check_range("ramp_in_ms", self.ramp_in_ms, 1.0, 5000.0)
+        check_range("ramp_out_ms", self.ramp_out_ms, 1.0, 5000.0)
+        check_range("scene_gap_s", self.scene_gap_s, 0.0, 120.0)
 
 
 #: Loudness presets by standard name: (integrated target LUFS, max true peak dBTP, tolerance LU, label).
@@ -172,9 +173,9 @@ class RenderSettings(_Settings):
                     f"loudness={self.loudness!r} must be a preset ({', '.join(LOUDNESS_PRESETS)}), "
                     "'off', or a target in LUFS such as -24; pass one of those"
                 ) from None
-            _check_range("loudness", value, -60.0, 0.0)
+            check_range("loudness", value, -60.0, 0.0)
         if self.true_peak_dbtp is not None:
-            _check_range("true_peak_dbtp", self.true_peak_dbtp, -20.0, 0.0)
+            check_range("true_peak_dbtp", self.true_peak_dbtp, -20.0, 0.0)
 
     def target(self) -> tuple[float, float, float, str] | None:
         """(target LUFS, ceiling dBTP, tolerance LU, label), or None when normalisation is off."""

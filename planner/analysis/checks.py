@@ -33,6 +33,7 @@ import numpy as np
 from planner._typing import BoolArray, FloatArray
 from planner.analysis.speechmask import Hangover, fill_short_gaps, runs
 from planner.errors import SettingsError
+from planner.settings import check_range
 from planner.model import SpeechActivity, UncoveredSpeech
 from planner.units import ANALYSIS_FRAME_S
 
@@ -133,8 +134,7 @@ class HouseStyle:
             if isinstance(value, bool) or not isinstance(value, (int, float)) or (whole and not isinstance(value, int)):
                 kind = "a whole number" if whole else "a number"
                 raise SettingsError(f"{f.name}={value!r} must be {kind}; pass {kind} between {lo} and {hi}")
-            if not lo <= value <= hi:
-                raise SettingsError(f"{f.name}={value!r} must be between {lo} and {hi}; pass a value in that range")
+            check_range(f.name, value, lo, hi)
         if self.min_duration_s > self.max_duration_s:
             raise SettingsError(
                 f"min_duration_s={self.min_duration_s} must not exceed max_duration_s={self.max_duration_s}; "
