@@ -140,3 +140,26 @@ def reduce_in_blocks(reducer, mix: np.ndarray, parts: np.ndarray, block: int) ->
         comps.append(c)
     o, c = reducer.flush(2)
     return np.concatenate([*outs, o]), np.concatenate([*comps, c], axis=1)
+
+
+def untouched(fs: int, events: Sequence[GainEvent], n: int) -> np.ndarray:
+    """Samples outside every event's ramps, from the GainEvent contract (planner/model.py), with 1 sample slack."""
+    t = np.arange(n) / fs
+    keep = np.ones(n, dtype=bool)
+    for ev in events:
+        keep &= ~((t >= ev.start_s - ev.ramp_in_ms / 1000.0 - 1.0 / fs) & (t <= ev.end_s + ev.ramp_out_ms / 1000.0 + 1.0 / fs))
+    return keep
+
+
+def cut_and_si_sdr(prog: SynthProgramme, parts: np.ndarray, events: Sequence[GainEvent]) -> tuple[float, list[float]]:
+    """Attenuation of the true background over the events (dB, from the reduced ``parts``) and
+    each event's dialogue SI-SDR (dB) against the true dialogue."""
+    fs = prog.sample_rate_hz
+    bg_in = bg_out = 0.0
+    sdr = []
+    for ev in events:
+        a, b = int(ev.start_s * fs), int(ev.end_s * fs)
+        bg_in += float(np.sum(prog.background[a:b].astype(np.float64) ** 2))
+        bg_out += float(np.sum(parts[1, a:b].astype(np.float64) ** 2))
+        sdr.append(si_sdr_db(prog.dialogue[a:b], parts[0, a:b]))
+    return 10.0 * np.log10(bg_out / bg_in), sdr

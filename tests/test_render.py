@@ -12,20 +12,19 @@ from __future__ import annotations
 
 import hashlib
 import struct
-from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
 import pyloudnorm
 import pytest
 import soundfile as sf
-from render_fixtures import OnDisk, event, make_plan, reduce_in_blocks, si_sdr_db, truth_activity, write
+from render_fixtures import OnDisk, cut_and_si_sdr, event, make_plan, reduce_in_blocks, truth_activity, untouched, write
 from scipy.signal import resample_poly
 
 from planner.demo.synth import synth_programme
 from planner.errors import OutputError, PlanFileError, SettingsError
 from planner.io.audio import open_programme
-from planner.model import GainEvent, Plan
+from planner.model import Plan
 from planner.render.envelope import GainEnvelope
 from planner.render.limiter import TruePeakLimiter
 from planner.render.renderer import STEM_NAMES, plan_sha256, render
@@ -47,15 +46,6 @@ def reference_true_peak_dbtp(x: np.ndarray) -> float:
     """Independent 4x oversampled peak (scipy's polyphase resampler, Kaiser-windowed FIR)."""
     up = resample_poly(x.astype(np.float64), 4, 1, axis=0)
     return float(20.0 * np.log10(np.max(np.abs(up))))
-
-
-def untouched(fs: int, events: Sequence[GainEvent], n: int) -> np.ndarray:
-    """Samples outside every event's ramps, from the GainEvent contract (planner/model.py), with 1 sample slack."""
-    t = np.arange(n) / fs
-    keep = np.ones(n, dtype=bool)
-    for ev in events:
-        keep &= ~((t >= ev.start_s - ev.ramp_in_ms / 1000.0 - 1.0 / fs) & (t <= ev.end_s + ev.ramp_out_ms / 1000.0 + 1.0 / fs))
-    return keep
 
 
 def plan_for(disk: OnDisk, lines: tuple[int, ...], *, cut_db: float, lift_db: float = 0.0) -> Plan:
@@ -160,13 +150,8 @@ def test_mix_only_reduction_against_the_true_stems(layout: str, background: str,
     out, comp = reduce_in_blocks(reducer, mix, parts, 30_000)
     assert out.shape == mix.shape
     np.testing.assert_allclose(out, comp[0] + comp[1], atol=1e-6)  # the parts add up to the output
-    bg_in = bg_out = 0.0
-    for ev in events:
-        a, b = int(ev.start_s * fs), int(ev.end_s * fs)
-        bg_in += float(np.sum(prog.background[a:b].astype(np.float64) ** 2))
-        bg_out += float(np.sum(comp[1, a:b].astype(np.float64) ** 2))
-        assert si_sdr_db(prog.dialogue[a:b], comp[0, a:b]) >= 15.0
-    attenuation_db = 10.0 * np.log10(bg_out / bg_in)
+    attenuation_db, sdr_db = cut_and_si_sdr(prog, comp, events)
+    assert min(sdr_db) >= 15.0
     assert abs(attenuation_db - cut_db) <= 3.0
     keep = untouched(fs, events, mix.shape[0])
     assert np.array_equal(out[keep], mix[keep])
@@ -280,3 +265,4 @@ def test_plan_for_other_audio_and_stems_out_for_a_mix_are_refused(stereo: OnDisk
     plan = plan_for(stereo, (0,), cut_db=-6.0)
     with pytest.raises(SettingsError, match="stems_out needs a stems programme"):
         render(plan, open_programme(mix=stereo.mix), tmp_path / "out.wav", RenderSettings(), stems_out=tmp_path / "s")
+
