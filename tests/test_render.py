@@ -266,3 +266,21 @@ def test_plan_for_other_audio_and_stems_out_for_a_mix_are_refused(stereo: OnDisk
     with pytest.raises(SettingsError, match="stems_out needs a stems programme"):
         render(plan, open_programme(mix=stereo.mix), tmp_path / "out.wav", RenderSettings(), stems_out=tmp_path / "s")
 
+
+def test_a_failing_writer_thread_stops_the_pass_at_the_next_piece() -> None:
+    # Ground truth: the test's consumer fails on its first piece (as a full disk would); the
+    # pass must hear of it on its next put, not only after processing the whole programme.
+    import time
+
+    from planner.render.renderer import _Consumer
+
+    def fail(piece: object) -> None:
+        raise OSError(28, "No space left on device")
+
+    puts = 0
+    with pytest.raises(OSError, match="No space left"):
+        with _Consumer(fail) as consumer:
+            for puts in range(1, 201):  # the thread takes the first piece within a moment
+                consumer.put(puts)
+                time.sleep(0.01)
+    assert puts < 200  # raised by a put, not only when the block ended

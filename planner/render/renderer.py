@@ -447,8 +447,8 @@ class _Consumer:
     The K-weighting (compiled, :mod:`planner.analysis.iir`), numpy's loops over large
     arrays and libsndfile's writes release the interpreter lock, so the thread runs on the
     other core. Pieces go through a bounded queue (at most :data:`_QUEUED_PIECES` waiting:
-    constant memory) and must not be changed after :meth:`put`. Leaving the ``with`` block
-    waits for the thread; an error in it is raised there.
+    constant memory) and must not be changed after :meth:`put`. An error in the thread is
+    raised by the next :meth:`put`, or on leaving the ``with`` block, which waits for the thread.
     """
 
     def __init__(self, consume: Callable[[Any], None]) -> None:
@@ -470,7 +470,9 @@ class _Consumer:
         return self
 
     def put(self, piece: Any) -> None:
-        """Queue a piece (blocks while the queue is full)."""
+        """Queue a piece (blocks while the queue is full); raises the thread's error at once if it had one."""
+        if self._error is not None:
+            raise self._error
         self._queue.put(piece)
 
     def __exit__(self, *exc: object) -> None:

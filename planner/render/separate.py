@@ -398,9 +398,12 @@ class MixReducer:
         """
         p_t = np.abs(spec) ** 2
         speech = self._speech_frames(j0, p_t.shape[0])
-        coherent = None if side is None or ref is None else _coherent_power(spec, side, p_t, ref)
         # Speech-free statistics with exponential forgetting, updated once by each frame the chunk owns.
         quiet = own0 + np.flatnonzero(speech[own0:own1] == 0.0)
+        # the coherent power only where it is used (the statistics, or the mask of a moving chunk)
+        coherent = None
+        if side is not None and ref is not None and (moving or quiet.size > 0):
+            coherent = _coherent_power(spec, side, p_t, ref)
         if quiet.size:
             weights = self._decay ** np.arange(quiet.size - 1, -1, -1, dtype=np.float64)
             keep = self._decay**quiet.size
