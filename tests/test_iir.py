@@ -23,6 +23,21 @@ def test_the_same_values_as_scipy_over_noise_in_any_split() -> None:
     np.testing.assert_array_equal(zf, expected_zf)
 
 
+@pytest.mark.parametrize(
+    ("n_rows", "sos"),
+    [(3, SOS), (5, SOS), (3, signal.butter(6, 0.1, output="sos")), (2, signal.butter(2, 0.3, output="sos"))],
+    ids=["3-rows", "5-rows", "three-sections", "one-section"],
+)
+def test_any_number_of_rows_and_sections_gives_scipys_values(n_rows: int, sos: np.ndarray) -> None:
+    # Reference: scipy.signal.sosfilt; rows go through the kernel in pairs, an odd one alone.
+    x = np.random.default_rng(8).standard_normal((n_rows, 5000))
+    zi = np.random.default_rng(9).standard_normal((sos.shape[0], n_rows, 2)) * 0.01
+    expected, expected_zf = signal.sosfilt(sos, x, axis=-1, zi=zi)
+    y, zf = sosfilt(sos, x, zi)
+    np.testing.assert_array_equal(y, expected)
+    np.testing.assert_array_equal(zf, expected_zf)
+
+
 def test_one_signal_takes_a_one_dimensional_state() -> None:
     x = np.random.default_rng(6).standard_normal(3000)
     expected, expected_zf = signal.sosfilt(SOS, x, zi=np.zeros((2, 2)))
