@@ -13,13 +13,16 @@ from __future__ import annotations
 
 import contextlib
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from planner._typing import FloatArray
 from planner.analysis.align import align, time_cues
 from planner.analysis.channels import detection_signal
 from planner.analysis.checks import MIN_REPORT_CONFIDENCE, HouseStyle, load_style
+from planner.analysis.features import SignalKPower
 from planner.analysis.loudness import LoudnessMeter
 from planner.analysis.masking import score_cues
 from planner.analysis.vad import make_detector
@@ -113,19 +116,29 @@ def open_inputs(inputs: Inputs) -> tuple[Programme, SubtitleTrack]:
     return programme, track
 
 
-def measure(programme: Programme, settings: AnalysisSettings, *, progress: Progress | None = None) -> tuple[SpeechActivity, LoudnessSummary]:
+def measure(
+    programme: Programme,
+    settings: AnalysisSettings,
+    *,
+    progress: Progress | None = None,
+    k_power: SignalKPower | None = None,
+) -> tuple[SpeechActivity, LoudnessSummary]:
     """Pass 1: programme loudness and the speech track.
 
     With two or more cores and a programme of at least a minute, the speech detector reads
     the audio in a second process (metering a mix's true peak there too with the fast
     detector) while this one meters the loudness (:mod:`planner.io.parallel`); otherwise
-    one read feeds both. The results are the same.
+    one read feeds both. The results are the same. ``k_power`` (a mix only) is fed the
+    meter's K-weighted channels, for the scoring pass.
     """
     progress = progress or no_progress
     info = programme.info
     workers = use_workers(programme)
-    # the worker may meter the true peak (a third of the meter's work) to even out the load
-    meter = LoudnessMeter(info.sample_rate_hz, info.layout, true_peak=not (workers and peaks_beside_speech(programme, settings)))
+    # the worker may meter the true peak to even out the load
+    meter = LoudnessMeter(
+        info.sample_rate_hz, info.layout, true_peak=not (workers and peaks_beside_speech(programme, settings)),
+        on_weighted=None if k_power is None else k_power.feed,
+    )  # fmt: skip
     with contextlib.ExitStack() as stack:
         detector = None
         if workers:
@@ -203,11 +216,13 @@ def score_pass(
     settings: AnalysisSettings,
     *,
     progress: Progress | None = None,
+    k_power: FloatArray | None = None,
 ) -> tuple[CueScore, ...]:
-    """Pass 2: per-cue masking scores over the aligned spans."""
+    """Pass 2: per-cue masking scores over the aligned spans (``k_power``: a mix's frame
+    K-weighted powers from pass 1, :class:`~planner.analysis.features.SignalKPower`)."""
     with contextlib.ExitStack() as stack:
         # on two cores: frame features in a second process, the rest here (same scores)
-        bands = stack.enter_context(band_worker(programme, activity.frame_s)) if use_workers(programme) else None
+        bands = stack.enter_context(band_worker(programme, activity.frame_s, k_power)) if use_workers(programme) else None
         return score_cues(
             iter_programme(programme),
             info=programme.info,
@@ -217,6 +232,7 @@ def score_pass(
             settings=settings,
             progress=progress,
             bands=bands,
+            k_power=k_power,
         )
 
 
@@ -233,13 +249,21 @@ def analyse(
     progress = progress or no_progress
     programme, track = open_inputs(inputs)
     style = load_style(style_path)  # a bad profile fails before the long work
-    activity, loudness = measure(programme, settings, progress=progress)
-    alignment, timings, uncovered, background_like = align_cues(track.cues, activity, programme.info, settings, style)
-    scores = score_pass(programme, timings, activity, settings, progress=progress) if score else ()
+    # the inputs' SHA-256 in a thread beside the passes (hashlib and file reads release the
+    # interpreter lock), so that it fills the moments a core waits
+    with ThreadPoolExecutor(1, thread_name_prefix="cueplan-hash") as pool:
+        described = pool.submit(describe_inputs, inputs, out_dir)
+        # a mix's signals are K-weighted once, by the loudness meter (linear filters)
+        levels = SignalKPower(programme.info) if score and programme.kind == "mix" else None
+        activity, loudness = measure(programme, settings, progress=progress, k_power=levels)
+        alignment, timings, uncovered, background_like = align_cues(track.cues, activity, programme.info, settings, style)
+        k_power = None if levels is None else levels.result()
+        scores = score_pass(programme, timings, activity, settings, progress=progress, k_power=k_power) if score else ()
+        files = described.result()
     return Analysis(
         schema=SCHEMA_VERSION,
         settings=settings.to_dict(),
-        inputs=describe_inputs(inputs, out_dir),
+        inputs=files,
         audio=programme.info,
         subtitles=track,
         loudness=loudness,

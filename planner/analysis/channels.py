@@ -18,7 +18,7 @@ DETECTION_SOURCE: dict[Layout, str] = {"mono": "mono", "stereo": "mid (L+R)/2", 
 
 _CHANNELS: dict[Layout, int] = {"mono": 1, "stereo": 2, "5.1": 6}
 #: -3 dB as written in ITU-R BS.775 Table 2 (the downmix coefficient for C and the surrounds).
-_MINUS_3_DB = np.float32(0.7071)
+MINUS_3_DB = np.float32(0.7071)
 _L, _R, _C, _LS, _RS = 0, 1, 2, 4, 5  # column 3 is the LFE
 
 
@@ -67,10 +67,10 @@ def fold_down_stereo(block: AudioArray) -> AudioArray:
         float32 ``(n, 2)``.
     """
     _check(block, 6, "fold_down_stereo")
-    centre = block[:, _C] * _MINUS_3_DB
+    centre = block[:, _C] * MINUS_3_DB
     out = np.empty((block.shape[0], 2), dtype=np.float32)
-    out[:, 0] = block[:, _L] + centre + _MINUS_3_DB * block[:, _LS]
-    out[:, 1] = block[:, _R] + centre + _MINUS_3_DB * block[:, _RS]
+    out[:, 0] = block[:, _L] + centre + MINUS_3_DB * block[:, _LS]
+    out[:, 1] = block[:, _R] + centre + MINUS_3_DB * block[:, _RS]
     return out
 
 

@@ -19,6 +19,7 @@ BS.775 stereo fold-down). Memory: one block of input plus the band analysers' ov
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
@@ -26,11 +27,11 @@ import numpy.typing as npt
 
 from planner._typing import FloatArray
 from planner.analysis.bands import BandAnalyzer
-from planner.analysis.channels import fold_down_stereo
+from planner.analysis.channels import MINUS_3_DB, fold_down_stereo
 from planner.analysis.loudness import k_weighting_sos
 from planner.analysis.sii import N_BANDS
 from planner.errors import InputError
-from planner.model import AudioInfo
+from planner.model import AudioInfo, Layout
 from planner.units import ANALYSIS_FRAME_S
 
 if TYPE_CHECKING:
@@ -48,67 +49,46 @@ SURROUND_WEIGHTS = np.array([1.0, 1.0, 1.0, 0.0, 1.41, 1.41])
 CENTRE = 2
 
 
-class FrameFeatures:
-    """Band, K-weighted and flat power per analysis frame of one mono signal, streaming.
+class FrameMeans:
+    """Mean of each of several sample tracks per analysis frame, streaming.
 
-    Parameters
-    ----------
-    sample_rate_hz : int
-        Sample rate, Hz.
-    frame_s : float, keyword-only
-        Hop, seconds (default 10 ms).
+    Frames as in the module docstring: frame ``j`` covers samples ``[floor(j h + 0.5),
+    floor((j + 1) h + 0.5))`` (``h`` the hop in samples, float); :meth:`feed` gives the
+    frames its samples complete, :meth:`flush` the rest (the last one partial, the mean over
+    the samples it has), so that ``n`` samples give ``ceil(n / h)`` frames.
     """
 
-    def __init__(self, sample_rate_hz: int, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
-        # imported here: the compiled filter loads numba (about 0.3 s and 100 MB), and
-        # planning needs this module's constants only
-        from planner.analysis.iir import sosfilt
-
-        self._sosfilt = sosfilt
-        self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
-        self._sos = k_weighting_sos(sample_rate_hz)
-        self._zi: FloatArray = np.zeros((self._sos.shape[0], 2))
-        self._hop = frame_s * sample_rate_hz
+    def __init__(self, hop: float, n_tracks: int) -> None:
+        self._hop = hop
         self._n_seen = 0
-        self._next_frame = 0  # next K/flat frame to complete
-        # squared K-weighted and flat samples of the unfinished frame
-        self._carry: tuple[FloatArray, FloatArray] = (np.zeros(0), np.zeros(0))
-        self._queue: list[FloatArray] = []  # K/flat frames waiting for their band frames
+        self._next_frame = 0  # next frame to complete
+        self._carry: list[FloatArray] = [np.zeros(0) for _ in range(n_tracks)]  # samples of the unfinished frame
 
     def _boundary(self, j: npt.NDArray[np.int64]) -> npt.NDArray[np.int64]:
         return np.floor(j * self._hop + 0.5).astype(np.int64)
 
-    def _frames_from(self, squares: tuple[FloatArray, FloatArray], stop_frame: int) -> FloatArray:
-        """Mean squares ``(n, 2)`` (K, flat) of frames ``next_frame..stop_frame-1`` from ``carry + squares``.
+    def _frames_from(self, tracks: Sequence[FloatArray], stop_frame: int) -> FloatArray:
+        """Means ``(n, n_tracks)`` of frames ``next_frame..stop_frame-1`` from ``carry + tracks``.
 
-        Each of the two tracks is summed on its own (a contiguous 1-D ``reduceat`` adds in the
-        same order as one over a column of the two stacked).
+        Each track is summed on its own (a contiguous 1-D ``reduceat`` adds in the same order
+        as one over a column of them stacked).
         """
-        data = [np.concatenate([c, q]) for c, q in zip(self._carry, squares)]
+        data = [np.concatenate([c, q]) for c, q in zip(self._carry, tracks)]
         start = int(self._boundary(np.array([self._next_frame]))[0])
         j = np.arange(self._next_frame, stop_frame + 1)
         edges = np.minimum(self._boundary(j), start + data[0].shape[0]) - start
         if stop_frame > self._next_frame:
             counts = np.diff(edges)
-            sums = np.zeros((counts.size, 2))
+            sums = np.zeros((counts.size, len(data)))
             full = counts > 0  # only the partial last frame at the end of a signal can be empty
             if edges[-1]:
                 for column, track in enumerate(data):
                     sums[full, column] = np.add.reduceat(track[: edges[-1]], edges[:-1][full])
             out = sums / np.maximum(counts, 1)[:, None]
         else:
-            out = np.zeros((0, 2))
-        self._carry = (data[0][edges[-1] :], data[1][edges[-1] :])
+            out = np.zeros((0, len(data)))
+        self._carry = [track[edges[-1] :] for track in data]
         self._next_frame = stop_frame
-        return out
-
-    def _combine(self, bands: FloatArray) -> FloatArray:
-        n = bands.shape[0]
-        kf = np.vstack(self._queue) if self._queue else np.zeros((0, 2))
-        out = np.empty((n, N_FEATURES))
-        out[:, :N_BANDS] = bands
-        out[:, K:] = kf[:n]
-        self._queue = [kf[n:]] if kf.shape[0] > n else []
         return out
 
     def _complete_frames(self) -> int:
@@ -119,6 +99,68 @@ class FrameFeatures:
         while m > 0 and int(self._boundary(np.array([m]))[0]) > self._n_seen:
             m -= 1
         return m
+
+    def feed(self, tracks: Sequence[FloatArray]) -> FloatArray:
+        """Means ``(n_frames, n_tracks)`` of the frames completed by the next samples of every track (equal lengths)."""
+        self._n_seen += tracks[0].size
+        return self._frames_from(tracks, max(self._complete_frames(), self._next_frame))
+
+    def flush(self) -> FloatArray:
+        """Means of the remaining frames, the last one partial."""
+        total = int(np.ceil(self._n_seen / self._hop - 1e-9))
+        return self._frames_from([np.zeros(0)] * len(self._carry), max(total, self._next_frame))
+
+
+class FrameFeatures:
+    """Band, K-weighted and flat power per analysis frame of one mono signal, streaming.
+
+    Parameters
+    ----------
+    sample_rate_hz : int
+        Sample rate, Hz.
+    frame_s : float, keyword-only
+        Hop, seconds (default 10 ms).
+    k_power : ndarray, keyword-only, optional
+        The K-weighted power of every frame of the signal, computed elsewhere
+        (:class:`SignalKPower`); the signal is then not K-weighted here. Frames past its
+        end read 0.
+    """
+
+    def __init__(self, sample_rate_hz: int, *, frame_s: float = ANALYSIS_FRAME_S, k_power: FloatArray | None = None) -> None:
+        self._bands = BandAnalyzer(sample_rate_hz, frame_s=frame_s)
+        self._k_power = k_power
+        if k_power is None:
+            # imported here: the compiled filter loads numba (about 0.3 s and 100 MB), and
+            # planning needs this module's constants only
+            from planner.analysis.iir import sosfilt
+
+            self._sosfilt = sosfilt
+            self._sos = k_weighting_sos(sample_rate_hz)
+            self._zi: FloatArray = np.zeros((self._sos.shape[0], 2))
+        self._means = FrameMeans(frame_s * sample_rate_hz, 2 if k_power is None else 1)
+        self._n_levels = 0  # K/flat frames given so far
+        self._queue: list[FloatArray] = []  # K/flat frames waiting for their band frames
+
+    def _levels(self, means: FloatArray) -> FloatArray:
+        """K and flat columns ``(n, 2)`` of frames whose means (both, or flat alone) came from :class:`FrameMeans`."""
+        if self._k_power is None:
+            return means
+        n = means.shape[0]
+        out = np.zeros((n, 2))
+        k = self._k_power[self._n_levels : self._n_levels + n]
+        out[: k.shape[0], 0] = k
+        out[:, 1] = means[:, 0]
+        self._n_levels += n
+        return out
+
+    def _combine(self, bands: FloatArray) -> FloatArray:
+        n = bands.shape[0]
+        kf = np.vstack(self._queue) if self._queue else np.zeros((0, 2))
+        out = np.empty((n, N_FEATURES))
+        out[:, :N_BANDS] = bands
+        out[:, K:] = kf[:n]
+        self._queue = [kf[n:]] if kf.shape[0] > n else []
+        return out
 
     def band_powers(self, x: npt.ArrayLike) -> FloatArray:
         """The band columns alone of :meth:`process` (``x`` as there): what ``bands=`` takes."""
@@ -135,10 +177,12 @@ class FrameFeatures:
         instance fed the same signal, e.g. in another process); computed here when omitted.
         """
         sig = np.asarray(x, dtype=np.float64)
-        kw, self._zi = self._sosfilt(self._sos, sig, self._zi)
-        self._n_seen += sig.size
-        squares = (np.multiply(kw, kw, out=kw), sig * sig)
-        self._queue.append(self._frames_from(squares, max(self._complete_frames(), self._next_frame)))
+        if self._k_power is None:
+            kw, self._zi = self._sosfilt(self._sos, sig, self._zi)
+            means = self._means.feed((np.multiply(kw, kw, out=kw), sig * sig))
+        else:
+            means = self._means.feed((sig * sig,))
+        self._queue.append(self._levels(means))
         return self._combine(self.band_powers(sig) if bands is None else bands)
 
     def flush(self, bands: FloatArray | None = None) -> FloatArray:
@@ -146,9 +190,51 @@ class FrameFeatures:
 
         ``bands``: :meth:`flush_band_powers` computed elsewhere, as in :meth:`process`.
         """
-        total = int(np.ceil(self._n_seen / self._hop - 1e-9))
-        self._queue.append(self._frames_from((np.zeros(0), np.zeros(0)), max(total, self._next_frame)))
+        self._queue.append(self._levels(self._means.flush()))
         return self._combine(self.flush_band_powers() if bands is None else bands)
+
+
+def mix_signal_matrix(layout: Layout) -> FloatArray:
+    """How the analysed signals of a mix (:meth:`ProgrammeFeatures._signals_of` order) combine
+    the channels a loudness meter K-weights (LFE left out), shape ``(n_signals, n_metered)``.
+
+    Filtering is linear, so the K-weighted signals are these combinations of the K-weighted
+    channels (to rounding): stereo mid and side ``(L +- R) / 2``; 5.1 L, R, C, Ls, Rs and the
+    mid and side of the ITU-R BS.775 fold-down ``Lo = L + g C + g Ls``, ``Ro = R + g C + g Rs``.
+    """
+    if layout == "mono":
+        return np.ones((1, 1))
+    if layout == "stereo":
+        return np.array([[0.5, 0.5], [0.5, -0.5]])
+    g = float(MINUS_3_DB)
+    return np.vstack([np.eye(5), [[0.5, 0.5, g, 0.5 * g, 0.5 * g], [0.5, -0.5, 0.0, 0.5 * g, -0.5 * g]]])
+
+
+class SignalKPower:
+    """K-weighted power per analysis frame of every analysed signal of a mix, from the
+    K-weighted channels of the loudness meter (its ``on_weighted``), so that the scoring pass
+    need not K-weight them again.
+
+    Memory: one float32 per signal per 10 ms frame (about 3 MB per hour of stereo, 10 MB of
+    5.1), which the scoring pass needs from its start to its end.
+    """
+
+    def __init__(self, info: AudioInfo, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
+        self._matrix = mix_signal_matrix(info.layout)
+        self._means = FrameMeans(frame_s * info.sample_rate_hz, self._matrix.shape[0])
+        self._parts: list[npt.NDArray[np.float32]] = []
+
+    def feed(self, weighted: FloatArray) -> None:
+        """Add the next K-weighted samples of the metered channels, ``(n_metered, n)`` float64."""
+        signals = self._matrix @ weighted
+        np.square(signals, out=signals)
+        self._parts.append(self._means.feed(list(signals)).astype(np.float32))
+
+    def result(self) -> npt.NDArray[np.float32]:
+        """K-weighted power ``(n_frames, n_signals)`` of every frame, after the last block."""
+        parts = [*self._parts, self._means.flush().astype(np.float32)]
+        self._parts = []
+        return np.concatenate(parts)
 
 
 def _listener_sum(powers: list[FloatArray], weights: npt.ArrayLike) -> FloatArray:
@@ -163,14 +249,30 @@ class ProgrammeFeatures:
     stereo fold-down. Mix: ``total`` (listener sum of the mix); stereo also ``mixed`` = mid
     ``(L+R)/2`` and ``clean`` = side ``(L-R)/2``; 5.1 ``mixed`` = centre, ``clean`` = the
     others weighted as in the listener sum, plus ``fold_total``, ``fold_mixed``,
-    ``fold_clean`` for the fold-down's mid and side.
+    ``fold_clean`` for the fold-down's mid and side. ``k_power``: a mix's
+    :class:`SignalKPower` result, so that no signal is K-weighted here.
     """
 
-    def __init__(self, info: AudioInfo, kind: Literal["mix", "stems"], *, frame_s: float = ANALYSIS_FRAME_S) -> None:
+    def __init__(
+        self,
+        info: AudioInfo,
+        kind: Literal["mix", "stems"],
+        *,
+        frame_s: float = ANALYSIS_FRAME_S,
+        k_power: FloatArray | None = None,
+    ) -> None:
         self.layout = info.layout
         self.kind = kind
         n_signals = {"mono": 1, "stereo": 2, "5.1": 7}[info.layout] * (2 if kind == "stems" else 1)
-        self._signals = [FrameFeatures(info.sample_rate_hz, frame_s=frame_s) for _ in range(n_signals)]
+        if k_power is not None and (kind != "mix" or k_power.ndim != 2 or k_power.shape[1] != n_signals):
+            raise InputError(
+                f"k_power of shape {k_power.shape} does not fit this programme ({info.layout} {kind}); "
+                f"pass SignalKPower's result for a mix ({n_signals} columns), or none for stems"
+            )
+        self._signals = [
+            FrameFeatures(info.sample_rate_hz, frame_s=frame_s, k_power=None if k_power is None else k_power[:, i])
+            for i in range(n_signals)
+        ]
 
     def _signals_of(self, x: FloatArray) -> list[FloatArray]:
         """The mono signals analysed for one multichannel array ``(n, ch)``."""

@@ -12,7 +12,7 @@ EBU Tech 3341 (2023), EBU Tech 3342 (2023).
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -165,6 +165,10 @@ class LoudnessMeter:
     true_peak : bool, keyword-only
         Meter the true and sample peaks here (default); False when another meter fed the
         same samples does it (e.g. in another process), given to :meth:`summary`.
+    on_weighted : callable, keyword-only, optional
+        Called with the K-weighted samples of the metered channels (LFE left out) of every
+        block, float64 ``(n_metered, n)``, before they are squared (e.g.
+        :meth:`planner.analysis.features.SignalKPower.feed`); it must not keep the array.
 
     Notes
     -----
@@ -174,7 +178,14 @@ class LoudnessMeter:
     that the end of the programme cuts short is discarded (BS.1770-4 Annex 1).
     """
 
-    def __init__(self, sample_rate_hz: int, layout: Layout, *, true_peak: bool = True) -> None:
+    def __init__(
+        self,
+        sample_rate_hz: int,
+        layout: Layout,
+        *,
+        true_peak: bool = True,
+        on_weighted: Callable[[FloatArray], None] | None = None,
+    ) -> None:
         weights = channel_weights(layout)
         self.sample_rate_hz = sample_rate_hz
         self.layout = layout
@@ -193,6 +204,7 @@ class LoudnessMeter:
         self._work = np.zeros((len(self._metered), 0))
         self._step_sums: list[np.ndarray] = []
         self._true_peak = TruePeakMeter(sample_rate_hz, self.n_channels) if true_peak else None
+        self._on_weighted = on_weighted
         self.n_frames = 0
 
     def feed(self, block: AudioArray) -> None:
@@ -213,6 +225,8 @@ class LoudnessMeter:
         for row, channel in enumerate(self._metered):
             self._work[row] = block[:, channel]
         y, self._zi = self._sosfilt(self._sos, self._work, self._zi)
+        if self._on_weighted is not None:
+            self._on_weighted(y)
         np.square(y, out=y)
         head = 0
         if self._pending.shape[1]:

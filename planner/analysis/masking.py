@@ -92,11 +92,12 @@ class _ScoringPass:
         activity: SpeechActivity,
         settings: AnalysisSettings,
         stoi: bool,
+        k_power: FloatArray | None = None,
     ) -> None:
         self.info, self.kind, self.activity = info, kind, activity
         self.frame_s = activity.frame_s
         self.hop = self.frame_s * info.sample_rate_hz
-        self.features = ProgrammeFeatures(info, kind, frame_s=self.frame_s)
+        self.features = ProgrammeFeatures(info, kind, frame_s=self.frame_s, k_power=k_power)
         self.offset_db = spl_offset_db(settings.listening_level_db_spl)
         self.hearing_name, self.thresholds = analysis_thresholds(settings)
         self.windows = TrailingMean(esii_frames(self.frame_s))
@@ -368,6 +369,7 @@ def score_cues(
     progress: Progress | None = None,
     bands: Iterable[list[FloatArray]] | None = None,
     stoi: bool = True,
+    k_power: FloatArray | None = None,
 ) -> tuple[CueScore, ...]:
     """Score every cue for masking in one pass over the programme's blocks.
 
@@ -395,6 +397,11 @@ def score_cues(
     stoi : bool
         Compute STOI from stems (default); False leaves every ``stoi`` None (no reason
         given), for callers that read only the SII and the levels.
+    k_power : ndarray, optional
+        For a mix: the K-weighted power of every frame of every analysed signal, measured
+        in pass 1 (:class:`~planner.analysis.features.SignalKPower`), so that nothing is
+        K-weighted here; ``bands`` must then come from features made with it too. The
+        scores equal those computed without it to float32 rounding of the frame powers.
 
     Returns
     -------
@@ -408,7 +415,7 @@ def score_cues(
         ``bands`` ends before the blocks do.
     """
     report = progress or no_progress
-    scoring = _ScoringPass(info, kind, timings, activity, settings, stoi)
+    scoring = _ScoringPass(info, kind, timings, activity, settings, stoi, k_power)
     given = None if bands is None else iter(bands)
     try:
         for block in blocks:

@@ -115,8 +115,8 @@ def _speech_items(
     yield detect_programme_speech(programme, settings, peaks), peaks
 
 
-def _band_items(programme: Programme, frame_s: float) -> Iterator[list[FloatArray]]:
-    features = ProgrammeFeatures(programme.info, programme.kind, frame_s=frame_s)
+def _band_items(programme: Programme, frame_s: float, k_power: FloatArray | None) -> Iterator[list[FloatArray]]:
+    features = ProgrammeFeatures(programme.info, programme.kind, frame_s=frame_s, k_power=k_power)
     for block in iter_programme(programme):
         yield features.band_powers(block)
     yield features.flush_band_powers()
@@ -170,12 +170,14 @@ def speech_worker(
 
 
 @contextlib.contextmanager
-def band_worker(programme: Programme, frame_s: float) -> Iterator[Iterator[list[FloatArray]]]:
+def band_worker(
+    programme: Programme, frame_s: float, k_power: FloatArray | None = None
+) -> Iterator[Iterator[list[FloatArray]]]:
     """Compute the scoring pass's band powers in a second process; the context gives them in order.
 
-    The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s).band_powers(block)`` for
-    every block of :func:`planner.io.audio.iter_programme`, then its ``flush_band_powers()``:
-    what :func:`planner.analysis.masking.score_cues` takes as ``bands``.
+    The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s, k_power=k_power).band_powers(block)``
+    for every block of :func:`planner.io.audio.iter_programme`, then its ``flush_band_powers()``:
+    what :func:`planner.analysis.masking.score_cues` takes as ``bands`` (with the same ``k_power``).
     """
-    with _worker(_band_items, (programme, frame_s), QUEUE_BLOCKS) as items:
+    with _worker(_band_items, (programme, frame_s, k_power), QUEUE_BLOCKS) as items:
         yield items
