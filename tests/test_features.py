@@ -52,12 +52,13 @@ LAYOUTS = {"mono": 1, "stereo": 2, "5.1": 6}
 
 
 @pytest.mark.parametrize("layout", sorted(LAYOUTS), ids=sorted(LAYOUTS))
-def test_k_power_of_every_analysed_signal_from_the_meters_channels(rng: np.random.Generator, layout: str) -> None:
+@pytest.mark.parametrize("block", [7001, 333], ids=["blocks-of-7001", "blocks-shorter-than-a-frame"])
+def test_k_power_of_every_analysed_signal_from_the_meters_channels(rng: np.random.Generator, layout: str, block: int) -> None:
     x = (rng.standard_normal((N, LAYOUTS[layout])) * 0.1).astype(np.float32)
     levels = SignalKPower(_info(layout, LAYOUTS[layout]))
     meter = LoudnessMeter(RATE, layout, on_weighted=levels.feed)  # type: ignore[arg-type]
-    for start in range(0, N, 7001):
-        meter.feed(x[start : start + 7001])
+    for start in range(0, N, block):
+        meter.feed(x[start : start + block])
     got = levels.result()
     expected = np.stack([_expected_frames(s) for s in _signals(x, layout)], axis=1)
     assert got.shape == expected.shape == (-(-N // 480), len(_signals(x, layout)))

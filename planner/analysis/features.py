@@ -31,6 +31,7 @@ from planner.analysis.channels import MINUS_3_DB, fold_down_stereo
 from planner.analysis.loudness import k_weighting_sos
 from planner.analysis.sii import N_BANDS
 from planner.errors import InputError
+from planner.jit import compiled
 from planner.model import AudioInfo, Layout
 from planner.units import ANALYSIS_FRAME_S
 
@@ -100,6 +101,16 @@ class FrameMeans:
             m -= 1
         return m
 
+    def advance(self, n: int) -> npt.NDArray[np.int64]:
+        """Take ``n`` more samples without tracks; returns where, within them, the frames they
+        complete end (exclusive sample positions, increasing)."""
+        first = self._n_seen
+        self._n_seen += n
+        stop = max(self._complete_frames(), self._next_frame)
+        ends = self._boundary(np.arange(self._next_frame + 1, stop + 1)) - first
+        self._next_frame = stop
+        return ends
+
     def feed(self, tracks: Sequence[FloatArray]) -> FloatArray:
         """Means ``(n_frames, n_tracks)`` of the frames completed by the next samples of every track (equal lengths)."""
         self._n_seen += tracks[0].size
@@ -164,7 +175,7 @@ class FrameFeatures:
 
     def band_powers(self, x: npt.ArrayLike) -> FloatArray:
         """The band columns alone of :meth:`process` (``x`` as there): what ``bands=`` takes."""
-        return self._bands.process(np.asarray(x, dtype=np.float64).astype(np.float32))
+        return self._bands.process(np.asarray(x, dtype=np.float32))
 
     def flush_band_powers(self) -> FloatArray:
         """The band columns alone of :meth:`flush`."""
@@ -210,10 +221,34 @@ def mix_signal_matrix(layout: Layout) -> FloatArray:
     return np.vstack([np.eye(5), [[0.5, 0.5, g, 0.5 * g, 0.5 * g], [0.5, -0.5, 0.0, 0.5 * g, -0.5 * g]]])
 
 
+# fastmath: the sums of each frame are added in a vectorised order (deterministic, not sequential)
+@compiled(nogil=True, fastmath=True)
+def _frame_mean_squares(signals, ends, acc, out):  # type: ignore[no-untyped-def]
+    """Mean square of each row of ``signals`` over each frame ending (exclusive) at ``ends``
+    within this block, into ``out`` ``(len(ends), n_signals)``; ``acc`` carries the
+    unfinished frame's sums and, last, its sample count from block to block."""
+    n_signals, n = signals.shape
+    start = 0
+    for k in range(ends.size + 1):
+        stop = ends[k] if k < ends.size else n
+        for s in range(n_signals):
+            total = 0.0
+            for i in range(start, stop):
+                total += signals[s, i] * signals[s, i]
+            acc[s] += total
+        acc[n_signals] += stop - start
+        if k < ends.size:
+            for s in range(n_signals):
+                out[k, s] = acc[s] / acc[n_signals]
+                acc[s] = 0.0
+            acc[n_signals] = 0.0
+        start = stop
+
+
 class SignalKPower:
     """K-weighted power per analysis frame of every analysed signal of a mix, from the
     K-weighted channels of the loudness meter (its ``on_weighted``), so that the scoring pass
-    need not K-weight them again.
+    need not K-weight them again. Frames as :class:`FrameMeans` gives them.
 
     Memory: one float32 per signal per 10 ms frame (about 3 MB per hour of stereo, 10 MB of
     5.1), which the scoring pass needs from its start to its end.
@@ -221,20 +256,29 @@ class SignalKPower:
 
     def __init__(self, info: AudioInfo, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
         self._matrix = mix_signal_matrix(info.layout)
-        self._means = FrameMeans(frame_s * info.sample_rate_hz, self._matrix.shape[0])
+        self._frames = FrameMeans(frame_s * info.sample_rate_hz, 0)  # the frame rule alone
+        self._acc = np.zeros(self._matrix.shape[0] + 1)  # sums of the unfinished frame, then its sample count
+        self._signals = np.zeros((self._matrix.shape[0], 0))  # reused: fresh megabyte arrays cost page faults
         self._parts: list[npt.NDArray[np.float32]] = []
 
     def feed(self, weighted: FloatArray) -> None:
         """Add the next K-weighted samples of the metered channels, ``(n_metered, n)`` float64."""
-        signals = self._matrix @ weighted
-        np.square(signals, out=signals)
-        self._parts.append(self._means.feed(list(signals)).astype(np.float32))
+        n = weighted.shape[1]
+        if self._signals.shape[1] != n:
+            self._signals = np.zeros((self._matrix.shape[0], n))
+        np.matmul(self._matrix, weighted, out=self._signals)
+        ends = self._frames.advance(n)
+        out = np.empty((ends.size, self._matrix.shape[0]))
+        _frame_mean_squares(self._signals, ends, self._acc, out)
+        self._parts.append(out.astype(np.float32))
 
     def result(self) -> npt.NDArray[np.float32]:
         """K-weighted power ``(n_frames, n_signals)`` of every frame, after the last block."""
-        parts = [*self._parts, self._means.flush().astype(np.float32)]
+        parts = self._parts
+        if self._acc[-1] > 0:  # the last frame, partial
+            parts.append((self._acc[:-1] / self._acc[-1])[None, :].astype(np.float32))
         self._parts = []
-        return np.concatenate(parts)
+        return np.concatenate(parts) if parts else np.zeros((0, self._matrix.shape[0]), np.float32)
 
 
 def _listener_sum(powers: list[FloatArray], weights: npt.ArrayLike) -> FloatArray:
@@ -269,6 +313,7 @@ class ProgrammeFeatures:
                 f"k_power of shape {k_power.shape} does not fit this programme ({info.layout} {kind}); "
                 f"pass SignalKPower's result for a mix ({n_signals} columns), or none for stems"
             )
+        self._k_given = k_power is not None
         self._signals = [
             FrameFeatures(info.sample_rate_hz, frame_s=frame_s, k_power=None if k_power is None else k_power[:, i])
             for i in range(n_signals)
@@ -316,20 +361,23 @@ class ProgrammeFeatures:
             "fold_clean": p[6],
         }
 
-    def _arrays(self, block: ProgrammeBlock) -> list[FloatArray]:
+    def _arrays(self, block: ProgrammeBlock, dtype: type = np.float64) -> list[FloatArray]:
+        """The analysed signals of a block in ``dtype``. In float32 they are the float64 ones
+        rounded (a sum rounded once, then halved exactly), which is all the band analysis reads."""
         if self.kind == "stems":
             if block.dialogue is None or block.background is None:
                 raise InputError(
                     "stems scoring needs dialogue and background in every block; open the programme with both stems"
                 )
-            dialogue, background = block.dialogue.astype(np.float64), block.background.astype(np.float64)
+            dialogue, background = block.dialogue.astype(dtype), block.background.astype(dtype)
             return self._signals_of(dialogue) + self._signals_of(background)
-        return self._signals_of(block.mix.astype(np.float64))
+        return self._signals_of(block.mix.astype(dtype, copy=False))
 
     def offloaded(self) -> range:
-        """The signals whose whole features :meth:`band_powers` computes (the second half)."""
+        """The signals whose whole features :meth:`band_powers` computes (the second half,
+        for their K-weighting; none when the K-weighted powers were given)."""
         n = len(self._signals)
-        return range(n - n // 2, n)
+        return range(0) if self._k_given else range(n - n // 2, n)
 
     def band_powers(self, block: ProgrammeBlock) -> list[FloatArray]:
         """The costly part of :meth:`process`, for another process to compute.
@@ -340,6 +388,8 @@ class ProgrammeFeatures:
         instance's ``process(block, bands=...)`` then gives exactly what it gives alone.
         """
         offloaded = self.offloaded()
+        if not offloaded:
+            return [s.band_powers(a) for s, a in zip(self._signals, self._arrays(block, np.float32))]
         return [
             s.process(a) if i in offloaded else s.band_powers(a)
             for i, (s, a) in enumerate(zip(self._signals, self._arrays(block)))

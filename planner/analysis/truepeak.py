@@ -17,11 +17,11 @@ channel (numba), which reads the block where it lies instead of copying it.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
 from numpy.lib.stride_tricks import as_strided
 
 from planner._typing import AudioArray
 from planner.errors import InputError
+from planner.jit import compiled
 
 #: Oversampling factor (BS.1770 Annex 2: 4x for 48 kHz input).
 OVERSAMPLING = 4
@@ -69,12 +69,11 @@ _MATRIX, _BOUND = _phase_matrix()
 
 
 # fastmath lets the loops vectorise; magnitudes and maxima are exact either way (no rounding)
-@njit(cache=True, nogil=True, fastmath=True)
+@compiled(nogil=True, fastmath=True)
 def _frame_peaks(tail, block, channel, n_frames, own):  # type: ignore[no-untyped-def]
     """Largest magnitude of each whole frame of ``tail[:, channel]`` then ``block[:, channel]``
     (frames from sample ``_HISTORY`` on) into ``own``; returns the largest magnitude of the
-    frames and the block's column (at least the block's sample peak) and of the history
-    (compiled, numba)."""
+    frames and the block's column (at least the block's sample peak) and of the history."""
     n_tail = tail.shape[0]
     history = np.float32(0.0)
     for i in range(_HISTORY):

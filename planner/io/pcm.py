@@ -24,9 +24,9 @@ from pathlib import Path
 
 import numpy as np
 import soundfile as sf
-from numba import njit
 
 from planner._typing import AudioArray
+from planner.jit import compiled
 
 #: Bytes per sample of the sample formats read here.
 WIDTHS = {"PCM_16": 2, "PCM_24": 3}
@@ -42,9 +42,9 @@ _SCALE_32 = np.float32(2.0**-31)  # libsndfile's integer read is left-justified 
 _CHECK_FRAMES = 1024
 
 
-@njit(cache=True, nogil=True)
+@compiled(nogil=True)
 def _pcm24_to_float32(raw, out):  # type: ignore[no-untyped-def]
-    """Little-endian 24-bit samples ``raw`` (uint8) into ``out`` (float32, flat), full scale 1.0 (compiled, numba)."""
+    """Little-endian 24-bit samples ``raw`` (uint8) into ``out`` (float32, flat), full scale 1.0."""
     for i in range(out.size):
         k = 3 * i
         v = np.int64(raw[k]) | (np.int64(raw[k + 1]) << 8) | (np.int64(raw[k + 2]) << 16)
