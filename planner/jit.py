@@ -30,3 +30,15 @@ def compiled(**options: Any) -> Callable[[Callable[..., Any]], Callable[..., Any
         return call
 
     return wrap
+
+
+@compiled()
+def _identity(x):  # type: ignore[no-untyped-def]
+    return x
+
+
+def ready() -> None:
+    """Set up numba's dispatch in this process (about 0.25 s, once per process) by calling a
+    cached compiled function, so that processes forked afterwards inherit it instead of each
+    paying it again."""
+    _identity(0)

@@ -20,6 +20,12 @@ memory: about 35 ms at the lowest band down to 9.4 ms at the highest).
 Bands wholly above the Nyquist frequency read zero power; a band cut by it keeps the part
 below.
 
+The frames are transformed unwindowed and the periodic Hann window is applied to the
+spectrum as the three-tap convolution it is in frequency (``0.5 X[k] - 0.25 (X[k-1] +
+X[k+1])``, exact), with the band sums, in one compiled loop: the same values as windowing
+first to float32 rounding of the transform (about 1e-6 of a band's power), at a fraction
+of the cost.
+
 References
 ----------
 IEC 61260-1:2014, one-third-octave band edges ``fm * G**(+-1/6)`` with G = 2 here, about the
@@ -38,6 +44,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 from planner._typing import AudioArray, FloatArray
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz
 from planner.errors import SettingsError
+from planner.jit import compiled
 from planner.units import ANALYSIS_FRAME_S
 
 #: Bands with centre below this use the long window, the others the short one, Hz.
@@ -82,6 +89,34 @@ def _stacked_product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     if n_whole < a.shape[0]:
         np.matmul(a[n_whole:], b, out=out[n_whole:])
     return out
+
+
+@compiled(nogil=True)
+def _band_sums(spec, first_bin, bins_bands, bins_weights, out):  # type: ignore[no-untyped-def]
+    """Band powers from unwindowed spectra (compiled, numba).
+
+    ``spec``: one-sided DFTs ``(n_frames, n_fft / 2 + 1)`` of unwindowed frames. The periodic
+    Hann window is applied here as its exact equivalent in frequency, ``0.5 X[k] - 0.25
+    (X[k - 1] + X[k + 1])`` (conjugate symmetry past either end), in float64. ``out[f, b]``
+    is the sum over bins ``k = first_bin, first_bin + 1, ...`` of that bin's windowed power
+    times the weight of band ``b`` in it, each bin's bands and weights listed in
+    ``bins_bands`` (-1: none) and ``bins_weights``.
+    """
+    nyquist = spec.shape[1] - 1
+    for f in range(spec.shape[0]):
+        for b in range(out.shape[1]):
+            out[f, b] = 0.0
+        for j in range(bins_bands.shape[0]):
+            k = first_bin + j
+            below = spec[f, k - 1] if k >= 1 else np.conj(spec[f, 1])
+            above = spec[f, k + 1] if k < nyquist else np.conj(spec[f, nyquist - 1])
+            re = 0.5 * np.float64(spec[f, k].real) - 0.25 * (np.float64(below.real) + np.float64(above.real))
+            im = 0.5 * np.float64(spec[f, k].imag) - 0.25 * (np.float64(below.imag) + np.float64(above.imag))
+            power = re * re + im * im
+            for i in range(bins_bands.shape[1]):
+                b = bins_bands[j, i]
+                if b >= 0:
+                    out[f, b] += bins_weights[j, i] * power
 
 
 class _Decimator:
@@ -150,9 +185,16 @@ class _Path:
         used = np.flatnonzero(weights.any(axis=1))
         self.first_bin = int(used[0]) if used.size else 0
         self.stop_bin = int(used[-1]) + 1 if used.size else 0
-        # Rows first_bin..stop_bin-1: the bins any band uses (see _stacked_product for why
-        # the product is cut into small ones).
+        # Rows first_bin..stop_bin-1: the bins any band uses, each with the bands it reaches
+        # (one, or two where it straddles an edge) and their weights.
         self.band_weights = np.ascontiguousarray(weights[self.first_bin : self.stop_bin])
+        reach = max(int(np.count_nonzero(self.band_weights, axis=1).max(initial=0)), 1)
+        self.bins_bands = np.full((self.band_weights.shape[0], reach), -1, dtype=np.int64)
+        self.bins_weights = np.zeros((self.band_weights.shape[0], reach))
+        for k, row in enumerate(self.band_weights):
+            used = np.flatnonzero(row)
+            self.bins_bands[k, : used.size] = used
+            self.bins_weights[k, : used.size] = row[used]
         self.reset()
 
     def reset(self) -> None:
@@ -195,13 +237,10 @@ class _Path:
             frames = sliding_window_view(self.buf, self.n_window)[starts[0] : starts[-1] + 1 : step]
         else:
             frames = self.buf[starts[:, None] + np.arange(self.n_window)]
-        spec = self._rfft(frames * self.window, axis=1, overwrite_x=True)[:, self.first_bin : self.stop_bin]
-        power = spec.real.astype(np.float64)
-        power *= power
-        imag = spec.imag.astype(np.float64)
-        imag *= imag
-        power += imag
-        return _stacked_product(power, self.band_weights)
+        # unwindowed frames straight from the buffer; the window is applied to the spectrum
+        out = np.empty((frames.shape[0], self.band_weights.shape[1]))
+        _band_sums(self._rfft(frames, axis=1), self.first_bin, self.bins_bands, self.bins_weights, out)
+        return out
 
     def discard_before(self, centre_in: float) -> None:
         """Drop the samples no window from this frame centre on needs."""

@@ -19,7 +19,6 @@ BS.775 stereo fold-down). Memory: one block of input plus the band analysers' ov
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
@@ -50,47 +49,48 @@ SURROUND_WEIGHTS = np.array([1.0, 1.0, 1.0, 0.0, 1.41, 1.41])
 CENTRE = 2
 
 
-class FrameMeans:
-    """Mean of each of several sample tracks per analysis frame, streaming.
+# fastmath: the sums of each frame are added in a vectorised order (deterministic, not sequential)
+@compiled(nogil=True, fastmath=True)
+def _frame_mean_squares(signals, ends, acc, out):  # type: ignore[no-untyped-def]
+    """Mean square of each row of ``signals`` over each frame ending (exclusive) at ``ends``
+    within this block, into ``out`` ``(len(ends), n_signals)``; ``acc`` carries the
+    unfinished frame's sums and, last, its sample count from block to block."""
+    n_signals, n = signals.shape
+    start = 0
+    for k in range(ends.size + 1):
+        stop = ends[k] if k < ends.size else n
+        for s in range(n_signals):
+            total = 0.0
+            for i in range(start, stop):
+                total += signals[s, i] * signals[s, i]
+            acc[s] += total
+        acc[n_signals] += stop - start
+        if k < ends.size:
+            for s in range(n_signals):
+                out[k, s] = acc[s] / acc[n_signals]
+                acc[s] = 0.0
+            acc[n_signals] = 0.0
+        start = stop
+
+
+class FrameMeanSquares:
+    """Mean square of each of several signals per analysis frame, streaming.
 
     Frames as in the module docstring: frame ``j`` covers samples ``[floor(j h + 0.5),
     floor((j + 1) h + 0.5))`` (``h`` the hop in samples, float); :meth:`feed` gives the
     frames its samples complete, :meth:`flush` the rest (the last one partial, the mean over
-    the samples it has), so that ``n`` samples give ``ceil(n / h)`` frames.
+    the samples it has), so that ``n`` samples give ``ceil(n / h)`` frames. The squares are
+    summed by a compiled loop, without temporaries.
     """
 
-    def __init__(self, hop: float, n_tracks: int) -> None:
+    def __init__(self, hop: float, n_signals: int) -> None:
         self._hop = hop
         self._n_seen = 0
         self._next_frame = 0  # next frame to complete
-        self._carry: list[FloatArray] = [np.zeros(0) for _ in range(n_tracks)]  # samples of the unfinished frame
+        self._acc = np.zeros(n_signals + 1)  # sums of squares of the unfinished frame, then its sample count
 
     def _boundary(self, j: npt.NDArray[np.int64]) -> npt.NDArray[np.int64]:
         return np.floor(j * self._hop + 0.5).astype(np.int64)
-
-    def _frames_from(self, tracks: Sequence[FloatArray], stop_frame: int) -> FloatArray:
-        """Means ``(n, n_tracks)`` of frames ``next_frame..stop_frame-1`` from ``carry + tracks``.
-
-        Each track is summed on its own (a contiguous 1-D ``reduceat`` adds in the same order
-        as one over a column of them stacked).
-        """
-        data = [np.concatenate([c, q]) for c, q in zip(self._carry, tracks)]
-        start = int(self._boundary(np.array([self._next_frame]))[0])
-        j = np.arange(self._next_frame, stop_frame + 1)
-        edges = np.minimum(self._boundary(j), start + data[0].shape[0]) - start
-        if stop_frame > self._next_frame:
-            counts = np.diff(edges)
-            sums = np.zeros((counts.size, len(data)))
-            full = counts > 0  # only the partial last frame at the end of a signal can be empty
-            if edges[-1]:
-                for column, track in enumerate(data):
-                    sums[full, column] = np.add.reduceat(track[: edges[-1]], edges[:-1][full])
-            out = sums / np.maximum(counts, 1)[:, None]
-        else:
-            out = np.zeros((0, len(data)))
-        self._carry = [track[edges[-1] :] for track in data]
-        self._next_frame = stop_frame
-        return out
 
     def _complete_frames(self) -> int:
         """Number of frames whose last sample has arrived: largest m with boundary(m) <= n_seen."""
@@ -101,25 +101,27 @@ class FrameMeans:
             m -= 1
         return m
 
-    def advance(self, n: int) -> npt.NDArray[np.int64]:
-        """Take ``n`` more samples without tracks; returns where, within them, the frames they
-        complete end (exclusive sample positions, increasing)."""
+    def feed(self, signals: FloatArray) -> FloatArray:
+        """Mean squares ``(n_frames, n_signals)`` of the frames completed by the next samples
+        ``signals`` ``(n_signals, n)`` (any float dtype; squared and summed in float64)."""
         first = self._n_seen
-        self._n_seen += n
+        self._n_seen += signals.shape[1]
         stop = max(self._complete_frames(), self._next_frame)
         ends = self._boundary(np.arange(self._next_frame + 1, stop + 1)) - first
         self._next_frame = stop
-        return ends
-
-    def feed(self, tracks: Sequence[FloatArray]) -> FloatArray:
-        """Means ``(n_frames, n_tracks)`` of the frames completed by the next samples of every track (equal lengths)."""
-        self._n_seen += tracks[0].size
-        return self._frames_from(tracks, max(self._complete_frames(), self._next_frame))
+        out = np.empty((ends.size, self._acc.size - 1))
+        _frame_mean_squares(signals, ends, self._acc, out)
+        return out
 
     def flush(self) -> FloatArray:
-        """Means of the remaining frames, the last one partial."""
+        """Mean squares of the remaining frames: the unfinished one (0 where it has no sample)."""
         total = int(np.ceil(self._n_seen / self._hop - 1e-9))
-        return self._frames_from([np.zeros(0)] * len(self._carry), max(total, self._next_frame))
+        out = np.zeros((max(total - self._next_frame, 0), self._acc.size - 1))
+        if out.shape[0] and self._acc[-1] > 0:
+            out[0] = self._acc[:-1] / self._acc[-1]
+        self._acc[:] = 0.0
+        self._next_frame = max(total, self._next_frame)
+        return out
 
 
 class FrameFeatures:
@@ -148,12 +150,12 @@ class FrameFeatures:
             self._sosfilt = sosfilt
             self._sos = k_weighting_sos(sample_rate_hz)
             self._zi: FloatArray = np.zeros((self._sos.shape[0], 2))
-        self._means = FrameMeans(frame_s * sample_rate_hz, 2 if k_power is None else 1)
+        self._means = FrameMeanSquares(frame_s * sample_rate_hz, 2 if k_power is None else 1)
         self._n_levels = 0  # K/flat frames given so far
         self._queue: list[FloatArray] = []  # K/flat frames waiting for their band frames
 
     def _levels(self, means: FloatArray) -> FloatArray:
-        """K and flat columns ``(n, 2)`` of frames whose means (both, or flat alone) came from :class:`FrameMeans`."""
+        """K and flat columns ``(n, 2)`` of frames whose mean squares (both, or flat alone) came from :class:`FrameMeanSquares`."""
         if self._k_power is None:
             return means
         n = means.shape[0]
@@ -190,11 +192,12 @@ class FrameFeatures:
         sig = np.asarray(x, dtype=np.float64)
         if self._k_power is None:
             kw, self._zi = self._sosfilt(self._sos, sig, self._zi)
-            means = self._means.feed((np.multiply(kw, kw, out=kw), sig * sig))
+            means = self._means.feed(np.vstack([kw, sig]))
         else:
-            means = self._means.feed((sig * sig,))
+            means = self._means.feed(sig[None, :])
         self._queue.append(self._levels(means))
-        return self._combine(self.band_powers(sig) if bands is None else bands)
+        # the band analysis reads float32: a float32 input goes in as it is, not through float64
+        return self._combine(self.band_powers(x if np.asarray(x).dtype == np.float32 else sig) if bands is None else bands)
 
     def flush(self, bands: FloatArray | None = None) -> FloatArray:
         """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``.
@@ -221,34 +224,10 @@ def mix_signal_matrix(layout: Layout) -> FloatArray:
     return np.vstack([np.eye(5), [[0.5, 0.5, g, 0.5 * g, 0.5 * g], [0.5, -0.5, 0.0, 0.5 * g, -0.5 * g]]])
 
 
-# fastmath: the sums of each frame are added in a vectorised order (deterministic, not sequential)
-@compiled(nogil=True, fastmath=True)
-def _frame_mean_squares(signals, ends, acc, out):  # type: ignore[no-untyped-def]
-    """Mean square of each row of ``signals`` over each frame ending (exclusive) at ``ends``
-    within this block, into ``out`` ``(len(ends), n_signals)``; ``acc`` carries the
-    unfinished frame's sums and, last, its sample count from block to block."""
-    n_signals, n = signals.shape
-    start = 0
-    for k in range(ends.size + 1):
-        stop = ends[k] if k < ends.size else n
-        for s in range(n_signals):
-            total = 0.0
-            for i in range(start, stop):
-                total += signals[s, i] * signals[s, i]
-            acc[s] += total
-        acc[n_signals] += stop - start
-        if k < ends.size:
-            for s in range(n_signals):
-                out[k, s] = acc[s] / acc[n_signals]
-                acc[s] = 0.0
-            acc[n_signals] = 0.0
-        start = stop
-
-
 class SignalKPower:
     """K-weighted power per analysis frame of every analysed signal of a mix, from the
     K-weighted channels of the loudness meter (its ``on_weighted``), so that the scoring pass
-    need not K-weight them again. Frames as :class:`FrameMeans` gives them.
+    need not K-weight them again. Frames as :class:`FrameMeanSquares` gives them.
 
     Memory: one float32 per signal per 10 ms frame (about 3 MB per hour of stereo, 10 MB of
     5.1), which the scoring pass needs from its start to its end.
@@ -256,8 +235,7 @@ class SignalKPower:
 
     def __init__(self, info: AudioInfo, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
         self._matrix = mix_signal_matrix(info.layout)
-        self._frames = FrameMeans(frame_s * info.sample_rate_hz, 0)  # the frame rule alone
-        self._acc = np.zeros(self._matrix.shape[0] + 1)  # sums of the unfinished frame, then its sample count
+        self._means = FrameMeanSquares(frame_s * info.sample_rate_hz, self._matrix.shape[0])
         self._signals = np.zeros((self._matrix.shape[0], 0))  # reused: fresh megabyte arrays cost page faults
         self._parts: list[npt.NDArray[np.float32]] = []
 
@@ -267,18 +245,13 @@ class SignalKPower:
         if self._signals.shape[1] != n:
             self._signals = np.zeros((self._matrix.shape[0], n))
         np.matmul(self._matrix, weighted, out=self._signals)
-        ends = self._frames.advance(n)
-        out = np.empty((ends.size, self._matrix.shape[0]))
-        _frame_mean_squares(self._signals, ends, self._acc, out)
-        self._parts.append(out.astype(np.float32))
+        self._parts.append(self._means.feed(self._signals).astype(np.float32))
 
     def result(self) -> npt.NDArray[np.float32]:
         """K-weighted power ``(n_frames, n_signals)`` of every frame, after the last block."""
-        parts = self._parts
-        if self._acc[-1] > 0:  # the last frame, partial
-            parts.append((self._acc[:-1] / self._acc[-1])[None, :].astype(np.float32))
+        parts = [*self._parts, self._means.flush().astype(np.float32)]
         self._parts = []
-        return np.concatenate(parts) if parts else np.zeros((0, self._matrix.shape[0]), np.float32)
+        return np.concatenate(parts)
 
 
 def _listener_sum(powers: list[FloatArray], weights: npt.ArrayLike) -> FloatArray:
@@ -361,35 +334,36 @@ class ProgrammeFeatures:
             "fold_clean": p[6],
         }
 
-    def _arrays(self, block: ProgrammeBlock, dtype: type = np.float64) -> list[FloatArray]:
-        """The analysed signals of a block in ``dtype``. In float32 they are the float64 ones
-        rounded (a sum rounded once, then halved exactly), which is all the band analysis reads."""
+    def _arrays(self, block: ProgrammeBlock) -> list[FloatArray]:
+        """The analysed signals of a block: float64 where they are K-weighted here; float32
+        (rounded once) where the K-weighted powers were given, as the band analysis reads
+        float32 anyway and the flat power needs no more."""
+        if self._k_given:
+            return self._signals_of(block.mix)
         if self.kind == "stems":
             if block.dialogue is None or block.background is None:
                 raise InputError(
                     "stems scoring needs dialogue and background in every block; open the programme with both stems"
                 )
-            dialogue, background = block.dialogue.astype(dtype), block.background.astype(dtype)
+            dialogue, background = block.dialogue.astype(np.float64), block.background.astype(np.float64)
             return self._signals_of(dialogue) + self._signals_of(background)
-        return self._signals_of(block.mix.astype(dtype, copy=False))
+        return self._signals_of(block.mix.astype(np.float64))
 
     def offloaded(self) -> range:
-        """The signals whose whole features :meth:`band_powers` computes (the second half,
-        for their K-weighting; none when the K-weighted powers were given)."""
+        """The signals whose whole features :meth:`band_powers` computes: the second half (to
+        share their K-weighting), or all of them when the K-weighted powers were given."""
         n = len(self._signals)
-        return range(0) if self._k_given else range(n - n // 2, n)
+        return range(n) if self._k_given else range(n - n // 2, n)
 
     def band_powers(self, block: ProgrammeBlock) -> list[FloatArray]:
         """The costly part of :meth:`process`, for another process to compute.
 
         One array per analysed signal, for the frames this block completes: the band powers
         ``(n, 18)``, or for the :meth:`offloaded` signals the whole feature vectors
-        ``(n, N_FEATURES)``, so that the two processes share the K-weighting. Another
-        instance's ``process(block, bands=...)`` then gives exactly what it gives alone.
+        ``(n, N_FEATURES)``. Another instance's ``process(block, bands=...)`` then gives
+        exactly what it gives alone.
         """
         offloaded = self.offloaded()
-        if not offloaded:
-            return [s.band_powers(a) for s, a in zip(self._signals, self._arrays(block, np.float32))]
         return [
             s.process(a) if i in offloaded else s.band_powers(a)
             for i, (s, a) in enumerate(zip(self._signals, self._arrays(block)))
@@ -405,10 +379,12 @@ class ProgrammeFeatures:
 
         ``bands``: this block's :meth:`band_powers` if computed elsewhere.
         """
-        arrays = self._arrays(block)
         if bands is None:
-            return self._views([s.process(a) for s, a in zip(self._signals, arrays)])
+            return self._views([s.process(a) for s, a in zip(self._signals, self._arrays(block))])
         offloaded = self.offloaded()
+        if len(offloaded) == len(self._signals):
+            return self._views(bands)
+        arrays = self._arrays(block)
         return self._views(
             [b if i in offloaded else s.process(a, b) for i, (s, a, b) in enumerate(zip(self._signals, arrays, bands))]
         )

@@ -35,6 +35,7 @@ from planner.analysis.truepeak import TruePeakMeter
 from planner.analysis.vad import make_detector
 from planner.errors import CueplanError
 from planner.io.audio import Programme, iter_programme
+from planner.jit import ready
 from planner.model import SpeechActivity
 from planner.settings import AnalysisSettings
 
@@ -143,6 +144,8 @@ def _received(out: Any, worker: multiprocessing.process.BaseProcess) -> Iterator
 @contextlib.contextmanager
 def _worker(target: Callable[..., Any], args: tuple[Any, ...], maxsize: int) -> Iterator[Iterator[Any]]:
     context = _context()
+    if context.get_start_method() == "fork":
+        ready()  # the worker runs compiled loops too: it inherits numba's set-up instead of repeating it
     out = context.Queue(maxsize=maxsize)
     worker = context.Process(target=_run, args=(target, args, out), daemon=True)
     worker.start()
