@@ -140,7 +140,7 @@ class _ScoringPass:
                 )
             )
 
-    def feed(self, block: ProgrammeBlock, bands: list[FloatArray] | None = None) -> None:
+    def feed(self, block: ProgrammeBlock, bands: list[FloatArray | None] | None = None) -> None:
         """Add one block (contiguous with the previous one); ``bands``: its band powers if computed elsewhere."""
         if block.start_frame != self.samples_done:
             raise InputError(
@@ -154,7 +154,7 @@ class _ScoringPass:
         self.samples_done = end
         self._close(final=False)
 
-    def finish(self, bands: list[FloatArray] | None = None) -> tuple[CueScore, ...]:
+    def finish(self, bands: list[FloatArray | None] | None = None) -> tuple[CueScore, ...]:
         """Scores of every cue, in index order, after the last block (``bands``: the band powers' flush)."""
         self._frames(self.features.flush(bands))
         self._open(None)
@@ -367,7 +367,7 @@ def score_cues(
     activity: SpeechActivity,
     settings: AnalysisSettings,
     progress: Progress | None = None,
-    bands: Iterable[list[FloatArray]] | None = None,
+    bands: Iterable[list[FloatArray | None]] | None = None,
     stoi: bool = True,
     k_power: FloatArray | None = None,
 ) -> tuple[CueScore, ...]:
@@ -426,7 +426,7 @@ def score_cues(
         scoring.close()
 
 
-def _next_bands(given: Iterator[list[FloatArray]]) -> list[FloatArray]:
+def _next_bands(given: Iterator[list[FloatArray | None]]) -> list[FloatArray | None]:
     try:
         return next(given)
     except StopIteration:

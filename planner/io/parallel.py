@@ -116,7 +116,7 @@ def _speech_items(
     yield detect_programme_speech(programme, settings, peaks), peaks
 
 
-def _band_items(programme: Programme, frame_s: float, k_power: FloatArray | None) -> Iterator[list[FloatArray]]:
+def _band_items(programme: Programme, frame_s: float, k_power: FloatArray | None) -> Iterator[list[FloatArray | None]]:
     features = ProgrammeFeatures(programme.info, programme.kind, frame_s=frame_s, k_power=k_power)
     for block in iter_programme(programme):
         yield features.band_powers(block)
@@ -175,7 +175,7 @@ def speech_worker(
 @contextlib.contextmanager
 def band_worker(
     programme: Programme, frame_s: float, k_power: FloatArray | None = None
-) -> Iterator[Iterator[list[FloatArray]]]:
+) -> Iterator[Iterator[list[FloatArray | None]]]:
     """Compute the scoring pass's band powers in a second process; the context gives them in order.
 
     The items are ``ProgrammeFeatures(info, kind, frame_s=frame_s, k_power=k_power).band_powers(block)``
