@@ -99,3 +99,22 @@ def test_a_header_that_is_not_riff_is_left_to_soundfile(tmp_path):
     path = tmp_path / "x.wav"
     path.write_bytes(b"RIFX" + bytes(40))
     assert pcm._data_offset(path, 2, 3) is None
+
+
+@pytest.mark.parametrize("ch", [1, 2, 6], ids=["mono", "stereo", "5.1"])
+def test_24_bit_wav_written_directly_is_libsndfiles_file_byte_for_byte(tmp_path, rng, ch):
+    # Reference: the same samples written by soundfile (libsndfile's float to 24-bit conversion,
+    # with clipping); an odd frame count so that a mono file needs its pad byte.
+    from planner.io.audio_writer import AudioWriter
+
+    x = (rng.standard_normal((4001, ch)) * 0.3).astype(np.float32)
+    x[:6, 0] = [1.5, -1.5, 1.0, -1.0, 1.0 - 2.0**-24, 2.0**-24]  # beyond, at and next to full scale, tiny
+    x[6:9, 0] = np.array([0.5, 1.5, -2.5], dtype=np.float32) * 2.0**-23  # halves of the last bit
+    reference = tmp_path / "reference.wav"
+    sf.write(str(reference), x, 48000, subtype="PCM_24", format="WAVEX" if ch > 2 else "WAV")
+    writer = AudioWriter(tmp_path / "direct.wav", sample_rate_hz=48000, n_channels=ch)
+    with writer:
+        for start in range(0, 4001, 1500):
+            writer.write(x[start : start + 1500])
+    assert (tmp_path / "direct.wav").read_bytes() == reference.read_bytes()
+    assert writer.n_clipped == np.count_nonzero(np.abs(x) > 1.0)  # Ground truth: the samples beyond full scale

@@ -234,22 +234,33 @@ class SignalKPower:
     """
 
     def __init__(self, info: AudioInfo, *, frame_s: float = ANALYSIS_FRAME_S) -> None:
-        self._matrix = mix_signal_matrix(info.layout)
-        self._means = FrameMeanSquares(frame_s * info.sample_rate_hz, self._matrix.shape[0])
-        self._signals = np.zeros((self._matrix.shape[0], 0))  # reused: fresh megabyte arrays cost page faults
+        matrix = mix_signal_matrix(info.layout)
+        hop = frame_s * info.sample_rate_hz
+        # the leading signals that are metered channels themselves (5.1 L R C Ls Rs, mono) are
+        # read as they are; only the others (stereo mid and side, the fold-down's) are combined
+        n_direct = 0
+        while n_direct < min(matrix.shape) and np.array_equal(matrix[n_direct], np.eye(matrix.shape[1])[n_direct]):
+            n_direct += 1
+        self._n_direct = n_direct
+        self._combinations = matrix[n_direct:]
+        self._direct = FrameMeanSquares(hop, n_direct)
+        self._combined = FrameMeanSquares(hop, self._combinations.shape[0])
+        self._signals = np.zeros((self._combinations.shape[0], 0))  # reused: fresh megabyte arrays cost page faults
         self._parts: list[npt.NDArray[np.float32]] = []
 
     def feed(self, weighted: FloatArray) -> None:
         """Add the next K-weighted samples of the metered channels, ``(n_metered, n)`` float64."""
         n = weighted.shape[1]
         if self._signals.shape[1] != n:
-            self._signals = np.zeros((self._matrix.shape[0], n))
-        np.matmul(self._matrix, weighted, out=self._signals)
-        self._parts.append(self._means.feed(self._signals).astype(np.float32))
+            self._signals = np.zeros((self._combinations.shape[0], n))
+        np.matmul(self._combinations, weighted, out=self._signals)
+        direct = self._direct.feed(weighted[: self._n_direct])
+        self._parts.append(np.hstack([direct, self._combined.feed(self._signals)]).astype(np.float32))
 
     def result(self) -> npt.NDArray[np.float32]:
         """K-weighted power ``(n_frames, n_signals)`` of every frame, after the last block."""
-        parts = [*self._parts, self._means.flush().astype(np.float32)]
+        last = np.hstack([self._direct.flush(), self._combined.flush()]).astype(np.float32)
+        parts = [*self._parts, last]
         self._parts = []
         return np.concatenate(parts)
 

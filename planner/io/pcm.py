@@ -20,7 +20,9 @@ from __future__ import annotations
 
 import os
 import struct
+from collections.abc import Iterator
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 import soundfile as sf
@@ -53,18 +55,57 @@ def _pcm24_to_float32(raw, out):  # type: ignore[no-untyped-def]
         out[i] = np.float32(v) * _SCALE_24
 
 
+@compiled(nogil=True)
+def float_to_pcm24(x, out):  # type: ignore[no-untyped-def]
+    """Float samples ``x`` (flat, full scale 1.0) as little-endian 24-bit PCM into ``out`` (uint8);
+    returns how many lay beyond full scale (compiled, numba).
+
+    libsndfile's conversion with clipping, reproduced: the sample times 2**31, at or above
+    2**31 - 1 the largest code, at or below -2**31 the smallest, else rounded to the nearest
+    integer (halves to even) and its top 24 bits kept (an arithmetic shift: a floor).
+    """
+    n_over = 0
+    for i in range(x.size):
+        v = np.float64(x[i])
+        if abs(v) > 1.0:
+            n_over += 1
+        scaled = v * 2147483648.0
+        if scaled >= 2147483647.0:
+            code = 0x7FFFFF
+        elif scaled <= -2147483648.0:
+            code = -0x800000
+        else:
+            code = np.int64(np.rint(scaled)) >> 8
+        out[3 * i] = code & 0xFF
+        out[3 * i + 1] = (code >> 8) & 0xFF
+        out[3 * i + 2] = (code >> 16) & 0xFF
+    return n_over
+
+
+def riff_chunks(fh: BinaryIO, size: int) -> Iterator[tuple[bytes, int, int]]:
+    """The chunks of a RIFF/RF64 WAVE file open in ``fh`` of ``size`` bytes: (id, offset of
+    the body, length of the body), until the ``data`` chunk (the last one given)."""
+    fh.seek(0)
+    head = fh.read(12)
+    if len(head) < 12 or head[:4] not in (b"RIFF", b"RF64") or head[8:12] != b"WAVE":
+        return
+    pos = 12
+    while pos + 8 <= size:
+        fh.seek(pos)
+        chunk_id, chunk_size = struct.unpack("<4sI", fh.read(8))
+        yield chunk_id, pos + 8, chunk_size
+        if chunk_id == b"data" or chunk_size == 0xFFFFFFFF:
+            return
+        pos += 8 + chunk_size + (chunk_size & 1)
+
+
 def _data_offset(path: Path, n_channels: int, width: int) -> int | None:
     """Byte offset of the first sample frame of a WAV/RF64 integer PCM file, or None if it is not one."""
     with open(path, "rb") as f:
-        size = os.fstat(f.fileno()).st_size
-        head = f.read(12)
-        if len(head) < 12 or head[:4] not in (b"RIFF", b"RF64") or head[8:12] != b"WAVE":
-            return None
-        pos, fmt_ok = 12, False
-        while pos + 8 <= size:
-            f.seek(pos)
-            chunk_id, chunk_size = struct.unpack("<4sI", f.read(8))
+        fmt_ok = False
+        for chunk_id, body, chunk_size in riff_chunks(f, os.fstat(f.fileno()).st_size):
             if chunk_id == b"fmt ":
+                f.seek(body)
                 fmt = f.read(min(chunk_size, 40))
                 if len(fmt) < 16:
                     return None
@@ -73,10 +114,7 @@ def _data_offset(path: Path, n_channels: int, width: int) -> int | None:
                     tag = int.from_bytes(fmt[24:26], "little")
                 fmt_ok = tag == _WAVE_FORMAT_PCM and channels == n_channels and bits == 8 * width and align == n_channels * width
             elif chunk_id == b"data":
-                return pos + 8 if fmt_ok else None
-            if chunk_size == 0xFFFFFFFF:  # an RF64 size kept in ds64, on a chunk before the data: not handled here
-                return None
-            pos += 8 + chunk_size + (chunk_size & 1)
+                return body if fmt_ok else None
     return None
 
 
