@@ -19,6 +19,7 @@ BS.775 stereo fold-down). Memory: one block of input plus the band analysers' ov
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
@@ -87,7 +88,7 @@ class FrameMeanSquares:
         self._hop = hop
         self._n_seen = 0
         self._next_frame = 0  # next frame to complete
-        self._acc = np.zeros(n_signals + 1)  # sums of squares of the unfinished frame, then its sample count
+        self._acc = np.zeros((n_signals, 2))  # per signal: sum of squares of the unfinished frame, its sample count
 
     def _boundary(self, j: npt.NDArray[np.int64]) -> npt.NDArray[np.int64]:
         return np.floor(j * self._hop + 0.5).astype(np.int64)
@@ -101,24 +102,26 @@ class FrameMeanSquares:
             m -= 1
         return m
 
-    def feed(self, signals: FloatArray) -> FloatArray:
-        """Mean squares ``(n_frames, n_signals)`` of the frames completed by the next samples
-        ``signals`` ``(n_signals, n)`` (any float dtype; squared and summed in float64)."""
+    def feed(self, signals: Sequence[FloatArray]) -> FloatArray:
+        """Mean squares ``(n_frames, n_signals)`` of the frames completed by the next samples of
+        every signal (1-D, equal lengths, any float dtype; squared and summed in float64)."""
         first = self._n_seen
-        self._n_seen += signals.shape[1]
+        self._n_seen += len(signals[0])
         stop = max(self._complete_frames(), self._next_frame)
         ends = self._boundary(np.arange(self._next_frame + 1, stop + 1)) - first
         self._next_frame = stop
-        out = np.empty((ends.size, self._acc.size - 1))
-        _frame_mean_squares(signals, ends, self._acc, out)
+        out = np.empty((ends.size, self._acc.shape[0]))
+        for row, x in enumerate(signals):
+            _frame_mean_squares(x[None, :], ends, self._acc[row], out[:, row : row + 1])
         return out
 
     def flush(self) -> FloatArray:
         """Mean squares of the remaining frames: the unfinished one (0 where it has no sample)."""
         total = int(np.ceil(self._n_seen / self._hop - 1e-9))
-        out = np.zeros((max(total - self._next_frame, 0), self._acc.size - 1))
-        if out.shape[0] and self._acc[-1] > 0:
-            out[0] = self._acc[:-1] / self._acc[-1]
+        out = np.zeros((max(total - self._next_frame, 0), self._acc.shape[0]))
+        if out.shape[0]:
+            counted = self._acc[:, 1] > 0
+            out[0, counted] = self._acc[counted, 0] / self._acc[counted, 1]
         self._acc[:] = 0.0
         self._next_frame = max(total, self._next_frame)
         return out
@@ -183,18 +186,21 @@ class FrameFeatures:
         """The band columns alone of :meth:`flush`."""
         return self._bands.flush()
 
-    def process(self, x: npt.ArrayLike, bands: FloatArray | None = None) -> FloatArray:
+    def process(self, x: npt.ArrayLike, bands: FloatArray | None = None, weighted: FloatArray | None = None) -> FloatArray:
         """Feature vectors of the frames completed by this input, shape ``(n_frames, N_FEATURES)``.
 
         ``bands``: :meth:`band_powers` of the same input computed elsewhere (by another
         instance fed the same signal, e.g. in another process); computed here when omitted.
+        ``weighted``: the input K-weighted elsewhere, carrying the filter state from call to
+        call (:class:`ProgrammeFeatures` filters its signals together); filtered here when omitted.
         """
         sig = np.asarray(x, dtype=np.float64)
-        if self._k_power is None:
-            kw, self._zi = self._sosfilt(self._sos, sig, self._zi)
-            means = self._means.feed(np.vstack([kw, sig]))
+        if self._k_power is not None:
+            means = self._means.feed([sig])
         else:
-            means = self._means.feed(sig[None, :])
+            if weighted is None:
+                weighted, self._zi = self._sosfilt(self._sos, sig, self._zi)
+            means = self._means.feed([weighted, sig])
         self._queue.append(self._levels(means))
         # the band analysis reads float32: a float32 input goes in as it is, not through float64
         return self._combine(self.band_powers(x if np.asarray(x).dtype == np.float32 else sig) if bands is None else bands)
@@ -243,23 +249,26 @@ class SignalKPower:
             n_direct += 1
         self._n_direct = n_direct
         self._combinations = matrix[n_direct:]
-        self._direct = FrameMeanSquares(hop, n_direct)
-        self._combined = FrameMeanSquares(hop, self._combinations.shape[0])
+        self._direct = FrameMeanSquares(hop, n_direct) if n_direct else None
+        self._combined = FrameMeanSquares(hop, self._combinations.shape[0]) if n_direct < matrix.shape[0] else None
         self._signals = np.zeros((self._combinations.shape[0], 0))  # reused: fresh megabyte arrays cost page faults
         self._parts: list[npt.NDArray[np.float32]] = []
 
     def feed(self, weighted: FloatArray) -> None:
         """Add the next K-weighted samples of the metered channels, ``(n_metered, n)`` float64."""
-        n = weighted.shape[1]
-        if self._signals.shape[1] != n:
-            self._signals = np.zeros((self._combinations.shape[0], n))
-        np.matmul(self._combinations, weighted, out=self._signals)
-        direct = self._direct.feed(weighted[: self._n_direct])
-        self._parts.append(np.hstack([direct, self._combined.feed(self._signals)]).astype(np.float32))
+        parts = []
+        if self._direct is not None:
+            parts.append(self._direct.feed(list(weighted[: self._n_direct])))
+        if self._combined is not None:
+            if self._signals.shape[1] != weighted.shape[1]:
+                self._signals = np.zeros((self._combinations.shape[0], weighted.shape[1]))
+            np.matmul(self._combinations, weighted, out=self._signals)
+            parts.append(self._combined.feed(list(self._signals)))
+        self._parts.append(np.hstack(parts).astype(np.float32))
 
     def result(self) -> npt.NDArray[np.float32]:
         """K-weighted power ``(n_frames, n_signals)`` of every frame, after the last block."""
-        last = np.hstack([self._direct.flush(), self._combined.flush()]).astype(np.float32)
+        last = np.hstack([m.flush() for m in (self._direct, self._combined) if m is not None]).astype(np.float32)
         parts = [*self._parts, last]
         self._parts = []
         return np.concatenate(parts)
@@ -298,6 +307,14 @@ class ProgrammeFeatures:
                 f"pass SignalKPower's result for a mix ({n_signals} columns), or none for stems"
             )
         self._k_given = k_power is not None
+        if k_power is None:
+            # the signals one process computes whole are K-weighted together (two rows at a
+            # time through the compiled cascade); imported here as in FrameFeatures
+            from planner.analysis.iir import sosfilt
+
+            self._sosfilt = sosfilt
+            self._sos = k_weighting_sos(info.sample_rate_hz)
+            self._zi: FloatArray = np.zeros((self._sos.shape[0], n_signals, 2))
         self._signals = [
             FrameFeatures(info.sample_rate_hz, frame_s=frame_s, k_power=None if k_power is None else k_power[:, i])
             for i in range(n_signals)
@@ -360,36 +377,65 @@ class ProgrammeFeatures:
             return self._signals_of(dialogue) + self._signals_of(background)
         return self._signals_of(block.mix.astype(np.float64))
 
+    def _whole(
+        self, indices: Sequence[int], arrays: list[FloatArray], bands: Sequence[FloatArray | None] | None = None
+    ) -> dict[int, FloatArray]:
+        """Feature vectors of the signals ``indices`` for one block's ``arrays`` (``bands``: their
+        band powers where computed elsewhere), K-weighted here together unless the powers were given."""
+        weighted: list[FloatArray | None] = [None] * len(indices)
+        if indices and not self._k_given:
+            rows = np.vstack([np.asarray(arrays[i], dtype=np.float64) for i in indices])
+            chosen = list(indices)
+            filtered, self._zi[:, chosen] = self._sosfilt(self._sos, rows, self._zi[:, chosen])
+            weighted = list(filtered)
+        return {
+            i: self._signals[i].process(arrays[i], None if bands is None else bands[i], weighted=w)
+            for i, w in zip(indices, weighted)
+        }
+
+    def _whole_split(self) -> bool:
+        """Whether each process computes the whole features of its own signals (K-weighted
+        powers given, or stems: four or more signals to share), rather than the second process
+        computing every band power and half of the K-weighting (a mix without given powers)."""
+        return self._k_given or self.kind == "stems"
+
     def offloaded(self) -> range:
-        """The signals whose whole features :meth:`band_powers` computes, so that the two
-        processes take about equal shares. Without given K-weighted powers: the second half
-        (the band powers of the others are computed there too; the K-weighting is shared).
-        With them: all but the first third, whose features the caller computes entirely, as
-        its own scoring costs about the features of a third of the signals (measured on one
-        hour of stereo and of 5.1: 0 of 2 signals kept, 2 of 7)."""
+        """The signals whose whole features :meth:`band_powers` computes, chosen so that the
+        two processes take about equal shares (measured on one hour of stereo and 5.1).
+
+        With the K-weighted powers given: all but the first third, as the caller's own
+        scoring costs about the features of a third of the signals (0 of 2 signals kept for
+        stereo, 2 of 7 for 5.1). Stems: the second half (the background's), the caller
+        computing the dialogue's. A mix without given powers: the second half, the band
+        powers of the others computed there too (the caller K-weights those).
+        """
         n = len(self._signals)
-        return range(n // 3, n) if self._k_given else range(n - n // 2, n)
+        if self._k_given:
+            return range(n // 3, n)
+        return range(n // 2, n) if self.kind == "stems" else range(n - n // 2, n)
 
     def band_powers(self, block: ProgrammeBlock) -> list[FloatArray | None]:
         """The costly part of :meth:`process`, for another process to compute.
 
         One entry per analysed signal, for the frames this block completes: for the
         :meth:`offloaded` signals the whole feature vectors ``(n, N_FEATURES)``; for the
-        others the band powers ``(n, 18)``, or None when the K-weighted powers were given (the
-        caller computes those signals). Another instance's ``process(block, bands=...)`` then
-        gives exactly what it gives alone.
+        others the band powers ``(n, 18)``, or None where the caller computes those signals
+        whole. Another instance's ``process(block, bands=...)`` then gives exactly what it
+        gives alone.
         """
-        offloaded = self.offloaded()
+        offloaded, whole = self.offloaded(), self._whole_split()
+        arrays = self._arrays(block)
+        features = self._whole(offloaded, arrays)
         return [
-            s.process(a) if i in offloaded else (None if self._k_given else s.band_powers(a))
-            for i, (s, a) in enumerate(zip(self._signals, self._arrays(block)))
+            features[i] if i in offloaded else (None if whole else s.band_powers(a))
+            for i, (s, a) in enumerate(zip(self._signals, arrays))
         ]
 
     def flush_band_powers(self) -> list[FloatArray | None]:
         """What :meth:`band_powers` gives for the last frames, after the final block."""
-        offloaded = self.offloaded()
+        offloaded, whole = self.offloaded(), self._whole_split()
         return [
-            s.flush() if i in offloaded else (None if self._k_given else s.flush_band_powers())
+            s.flush() if i in offloaded else (None if whole else s.flush_band_powers())
             for i, s in enumerate(self._signals)
         ]
 
@@ -398,18 +444,17 @@ class ProgrammeFeatures:
 
         ``bands``: this block's :meth:`band_powers` if computed elsewhere.
         """
+        n = len(self._signals)
         if bands is None:
-            return self._views([s.process(a) for s, a in zip(self._signals, self._arrays(block))])
+            features = self._whole(range(n), self._arrays(block))
+            return self._views([features[i] for i in range(n)])
         offloaded = self.offloaded()
-        if len(offloaded) == len(self._signals):
+        if len(offloaded) == n:
             return self._views([_given(b) for b in bands])
-        arrays = self._arrays(block)  # (all of them: a 5.1 fold-down needs every channel anyway)
-        return self._views(
-            [
-                _given(b) if i in offloaded else s.process(a, b)
-                for i, (s, a, b) in enumerate(zip(self._signals, arrays, bands))
-            ]
-        )
+        kept = [i for i in range(n) if i not in offloaded]
+        # (all the arrays: a 5.1 fold-down needs every channel anyway)
+        features = self._whole(kept, self._arrays(block), None if self._whole_split() else bands)
+        return self._views([_given(bands[i]) if i in offloaded else features[i] for i in range(n)])
 
     def flush(self, bands: list[FloatArray | None] | None = None) -> dict[str, FloatArray]:
         """Views of the last frames after the final block (``bands``: :meth:`flush_band_powers`)."""
