@@ -36,7 +36,7 @@ import numpy as np
 from planner._typing import AudioArray
 from planner.analysis.loudness import LoudnessMeter
 from planner.errors import PlanFileError, SettingsError
-from planner.io.audio import DEFAULT_BLOCK_FRAMES, AudioWriter, Programme, iter_programme
+from planner.io.audio import DEFAULT_BLOCK_FRAMES, STEM_LENGTH_TOLERANCE_FRAMES, AudioWriter, Programme, iter_programme
 from planner.io.exports import plan_json_chunks
 from planner.io.files import refuse_inputs
 from planner.model import AudioInfo, LoudnessSummary, Plan, Record
@@ -529,7 +529,7 @@ def _check_matches(plan: Plan, programme: Programme) -> None:
             f"{b.n_channels}-channel at {b.sample_rate_hz} Hz; render the audio the plan was analysed from",
             field="analysis.audio",
         )
-    if abs(a.n_frames - b.n_frames) > DEFAULT_BLOCK_FRAMES:
+    if abs(a.n_frames - b.n_frames) > STEM_LENGTH_TOLERANCE_FRAMES:
         raise PlanFileError(
             f"the plan was made for {a.duration_s:.3f} s of audio, the programme lasts {b.duration_s:.3f} s; "
             "render the audio the plan was analysed from",
