@@ -427,3 +427,16 @@ def test_speech_judged_background_is_named_in_a_warning_not_listed() -> None:
     warnings = pipeline.programme_warnings(loudness, act, IDENTITY, background_like)
     assert any(w.startswith("1 stretch(es) of speech with no cue (2 s in all, from 5.0 s)") for w in warnings)
     assert not any("stretch(es)" in w for w in pipeline.programme_warnings(loudness, act, IDENTITY))
+
+
+@pytest.mark.parametrize(("n_x", "n_c"), [(1000, 10), (5003, 777), (64, 64), (12345, 1), (7, 3)], ids=str)
+def test_correlation_equals_scipy_signal_correlate(n_x: int, n_c: int) -> None:
+    # Reference: scipy.signal.correlate(mode="valid", method="fft"), which the alignment used
+    # before it took the same steps through scipy.fft (bit for bit).
+    from scipy.signal import correlate
+
+    from planner.analysis.edits import _correlate_valid
+
+    rng = np.random.default_rng(n_x + n_c)
+    x, c = rng.standard_normal(n_x), rng.standard_normal(n_c)
+    np.testing.assert_array_equal(_correlate_valid(x, c), correlate(x, c, mode="valid", method="fft"))

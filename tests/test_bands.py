@@ -138,3 +138,19 @@ def test_bad_settings_raise(kwargs: dict[str, object], match: str) -> None:
 def test_stereo_block_is_refused() -> None:
     with pytest.raises(SettingsError, match="takes one channel"):
         BandAnalyzer(48000).process(np.zeros((10, 2), dtype=np.float32))
+
+
+@pytest.mark.parametrize(("stop_db", "width"), [(80.0, 0.12), (60.0, 0.05), (40.0, 0.2), (15.0, 0.3)], ids=str)
+def test_filter_designs_equal_scipy_signals(stop_db: float, width: float) -> None:
+    # Reference: scipy.signal (kaiserord, firwin with a Kaiser window, windows.hann), the
+    # designs these replace so that an analysis does not import it.
+    from scipy import signal
+
+    from planner.analysis.bands import kaiser_lowpass, kaiser_order, periodic_hann
+
+    n_taps, beta = kaiser_order(stop_db, width)
+    assert (n_taps, beta) == pytest.approx(signal.kaiserord(stop_db, width), rel=1e-12)
+    expected = signal.firwin(n_taps, 1234.5, window=("kaiser", beta), fs=48000.0)
+    np.testing.assert_allclose(kaiser_lowpass(n_taps, 1234.5, beta, 48000.0), expected, rtol=1e-9, atol=1e-15)
+    for n in (320, 960, 7):
+        np.testing.assert_allclose(periodic_hann(n), signal.windows.hann(n, sym=False), rtol=1e-12, atol=1e-15)

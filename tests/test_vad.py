@@ -261,3 +261,13 @@ def test_a_single_talker_is_not_marked_steady() -> None:
 def test_span_notes_round_trip(start_cs: int, length_cs: int, kind: str) -> None:
     span = LowConfidenceSpan(start_cs / 100, (start_cs + length_cs) / 100, kind)  # type: ignore[arg-type]
     assert spans_from_notes((span_note(span), "another note")) == (span,)
+
+
+def test_the_envelope_band_filter_is_scipys_butterworth_design() -> None:
+    # Reference: scipy.signal.butter, the design the written-out sections come from.
+    from scipy.signal import butter
+
+    from planner.analysis.vad import _ENVELOPE_DECIMATION, _ENVELOPE_SOS, DETECTOR_RATE_HZ, ENVELOPE_BAND_HZ
+
+    expected = butter(2, ENVELOPE_BAND_HZ, btype="bandpass", fs=DETECTOR_RATE_HZ / _ENVELOPE_DECIMATION, output="sos")
+    np.testing.assert_allclose(_ENVELOPE_SOS, expected, rtol=1e-15, atol=1e-16)

@@ -79,6 +79,37 @@ def _bin_weights(edges_hz: FloatArray, n_fft: int, sample_rate_hz: float) -> Flo
     return np.clip(overlap / df, 0.0, 1.0)
 
 
+# Three textbook designs written out rather than imported: scipy.signal, which has them
+# (windows.hann, kaiserord, firwin), costs every analysis about 0.6 s to import;
+# tests/test_bands.py checks these against it.
+
+
+def periodic_hann(n: int) -> FloatArray:
+    """Periodic Hann window of ``n`` samples, ``0.5 - 0.5 cos(2 pi k / n)`` (``scipy.signal.windows.hann(n, sym=False)``)."""
+    return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
+
+
+def kaiser_order(stop_db: float, width: float) -> tuple[int, float]:
+    """Taps and Kaiser beta of a low-pass FIR with ``stop_db`` attenuation and a transition
+    ``width`` (a fraction of Nyquist), by Kaiser's formulas (Oppenheim and Schafer, Discrete-Time
+    Signal Processing, 3rd ed., Eqs. 7.62-7.63; ``scipy.signal.kaiserord``)."""
+    if stop_db > 50.0:
+        beta = 0.1102 * (stop_db - 8.7)
+    elif stop_db > 21.0:
+        beta = 0.5842 * (stop_db - 21.0) ** 0.4 + 0.07886 * (stop_db - 21.0)
+    else:
+        beta = 0.0
+    return int(np.ceil((stop_db - 7.95) / 2.285 / (np.pi * width) + 1)), beta
+
+
+def kaiser_lowpass(n_taps: int, cutoff_hz: float, beta: float, sample_rate_hz: float) -> FloatArray:
+    """Windowed-sinc low-pass FIR, unity gain at DC (``scipy.signal.firwin`` with a Kaiser window)."""
+    m = np.arange(n_taps) - 0.5 * (n_taps - 1)
+    cutoff = cutoff_hz / (0.5 * sample_rate_hz)
+    taps = cutoff * np.sinc(cutoff * m) * np.kaiser(n_taps, beta)
+    return taps / taps.sum()  # type: ignore[no-any-return]
+
+
 def _stacked_product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """``a @ b`` for a tall ``a``, as a stack of products small enough to stay single-threaded."""
     rows = max(_PRODUCT_MACS // (a.shape[1] * b.shape[1]), 1)
@@ -128,12 +159,10 @@ class _Decimator:
     """
 
     def __init__(self, sample_rate_hz: float, factor: int, passband_hz: float) -> None:
-        from scipy import signal  # see _Path.__init__
-
         stop_hz = sample_rate_hz / factor - passband_hz  # lowest frequency aliasing into the pass band
-        n_taps, beta = signal.kaiserord(DECIMATION_STOP_DB, (stop_hz - passband_hz) / (sample_rate_hz / 2))
+        n_taps, beta = kaiser_order(DECIMATION_STOP_DB, (stop_hz - passband_hz) / (sample_rate_hz / 2))
         n_phases = -(-n_taps // factor)
-        taps = signal.firwin(n_phases * factor, (passband_hz + stop_hz) / 2, window=("kaiser", beta), fs=sample_rate_hz)
+        taps = kaiser_lowpass(n_phases * factor, (passband_hz + stop_hz) / 2, beta, sample_rate_hz)
         self.factor = factor
         self.n_taps = n_phases * factor
         self.first_output = -n_phases
@@ -164,10 +193,9 @@ class _Path:
     """One window length at one (possibly decimated) rate, and the bands it measures."""
 
     def __init__(self, sample_rate_hz: float, window_s: float, edges_hz: FloatArray, factor: int) -> None:
-        # scipy.signal and scipy.fft are imported on first use: they take about a second to
-        # import, and planning needs nothing from this module but its constants.
+        # scipy.fft is imported on first use: planning needs nothing from this module but its
+        # constants
         import scipy.fft
-        from scipy import signal
 
         self._rfft = scipy.fft.rfft
         self.sample_rate_hz = sample_rate_hz
@@ -176,7 +204,7 @@ class _Path:
         rate = sample_rate_hz / factor
         n = int(np.floor(window_s * rate + 0.5))
         self.n_window = n + (n % 2)
-        self.window = signal.windows.hann(self.n_window, sym=False).astype(np.float32)
+        self.window = periodic_hann(self.n_window).astype(np.float32)
         weights = _bin_weights(edges_hz, self.n_window, rate)
         # One-sided spectrum: every bin but DC and Nyquist stands for two (Parseval), and the
         # window's energy is divided out so that a stationary signal reads its mean square.

@@ -20,7 +20,7 @@ takes the middle of that interval.
 from __future__ import annotations
 
 import numpy as np
-from scipy.signal import correlate
+from scipy import fft as sp_fft
 
 from planner._typing import FloatArray
 from planner.model import SpeechActivity
@@ -64,11 +64,26 @@ def coarse_scores(z: FloatArray, a: np.ndarray, b: np.ndarray, max_lag: int) -> 
         if n_covered == 0:
             continue  # adds exactly nothing
         total += n_covered
-        out += correlate(_extended(z, s0 - max_lag, s1 + max_lag), c, mode="valid", method="fft")
+        out += _correlate_valid(_extended(z, s0 - max_lag, s1 + max_lag), c)
     if total == 0:
         return np.full(2 * max_lag + 1, -1.0)
     out /= total
     return out
+
+
+def _correlate_valid(x: FloatArray, c: FloatArray) -> FloatArray:
+    """``scipy.signal.correlate(x, c, mode="valid", method="fft")`` of real 1-D arrays with
+    ``len(x) >= len(c)``: the same FFT steps as ``scipy.signal.fftconvolve`` takes (padded to
+    the next fast length, kept centred), through scipy.fft, which loads in a third of the time
+    scipy.signal does (the values are the same; tests/test_align.py checks them)."""
+    if c.size == 1:  # as fftconvolve: no transform along an axis of length one
+        return x * c[0]
+    n = x.size + c.size - 1
+    size = [sp_fft.next_fast_len(n, True)]
+    full = sp_fft.irfftn(sp_fft.rfftn(x, size, axes=[0]) * sp_fft.rfftn(c[::-1], size, axes=[0]), size, axes=[0])[:n]
+    n_valid = x.size - c.size + 1
+    start = (n - n_valid) // 2
+    return full[start : start + n_valid].copy()
 
 
 def _cover(a: np.ndarray, b: np.ndarray, s0: int, s1: int) -> FloatArray:

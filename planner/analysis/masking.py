@@ -34,8 +34,6 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
-from pystoi import stoi as pystoi_stoi
-from pystoi import utils as stoi_utils
 
 from planner._typing import FloatArray
 from planner.analysis.channels import detection_signal
@@ -75,8 +73,6 @@ if TYPE_CHECKING:
 
 __all__ = ["score_cues", "verdict"]
 
-#: pystoi's module (its rate, frame and segment constants; the package exports the function under the same name).
-_PYSTOI = importlib.import_module("pystoi.stoi")
 #: STOI jobs that may wait for the thread before the pass waits for the oldest (each holds a cue's audio).
 _STOI_WAITING = 8
 
@@ -349,14 +345,19 @@ def _stoi(cue: CueAccumulator, sample_rate_hz: int) -> tuple[float | None, str]:
     """
     if not cue.keep_audio:
         return None, f"no STOI: the span must be {STOI_MIN_S:g}-{STOI_MAX_S:g} s long"
+    # imported here: pystoi loads scipy.signal (about 0.6 s), which only stems scoring needs
+    from pystoi import stoi as pystoi_stoi
+    from pystoi import utils as stoi_utils
+
+    constants = importlib.import_module("pystoi.stoi")  # its rate, frame and segment lengths
     clean, degraded = np.concatenate(cue.clean), np.concatenate(cue.degraded)
-    if sample_rate_hz != _PYSTOI.FS:
-        clean = stoi_utils.resample_oct(clean, _PYSTOI.FS, sample_rate_hz)
-        degraded = stoi_utils.resample_oct(degraded, _PYSTOI.FS, sample_rate_hz)
-    kept, _ = stoi_utils.remove_silent_frames(clean, degraded, _PYSTOI.DYN_RANGE, _PYSTOI.N_FRAME, _PYSTOI.N_FRAME // 2)
-    if stoi_utils.stft(kept, _PYSTOI.N_FRAME, _PYSTOI.NFFT, overlap=2).shape[0] < _PYSTOI.N:
+    if sample_rate_hz != constants.FS:
+        clean = stoi_utils.resample_oct(clean, constants.FS, sample_rate_hz)
+        degraded = stoi_utils.resample_oct(degraded, constants.FS, sample_rate_hz)
+    kept, _ = stoi_utils.remove_silent_frames(clean, degraded, constants.DYN_RANGE, constants.N_FRAME, constants.N_FRAME // 2)
+    if stoi_utils.stft(kept, constants.N_FRAME, constants.NFFT, overlap=2).shape[0] < constants.N:
         return None, "no STOI: too little dialogue above silence in the span"
-    return float(pystoi_stoi(clean, degraded, _PYSTOI.FS)), ""
+    return float(pystoi_stoi(clean, degraded, constants.FS)), ""
 
 
 def score_cues(

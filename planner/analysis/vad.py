@@ -29,10 +29,10 @@ from typing import Any, Literal, Protocol
 import numpy as np
 import numpy.typing as npt
 import soxr
-from scipy.signal import butter, sosfilt, sosfilt_zi
 
 from planner._typing import AudioArray
 from planner.analysis.confidence import low_confidence_spans, moving_mean, span_note
+from planner.analysis.iir import sosfilt
 from planner.analysis.speechmask import Hangover
 from planner.errors import AudioInputError, SettingsError
 from planner.model import SpeechActivity
@@ -55,8 +55,14 @@ FAST_VOTE_FRAMES = 5
 #: mean (alias leakage is small for this coarse measure and the cost a quarter).
 ENVELOPE_BAND_HZ = (200.0, 1000.0)
 _ENVELOPE_DECIMATION = 4
-_ENVELOPE_SOS = butter(
-    2, ENVELOPE_BAND_HZ, btype="bandpass", fs=DETECTOR_RATE_HZ / _ENVELOPE_DECIMATION, output="sos"
+#: The band's filter: ``scipy.signal.butter(2, ENVELOPE_BAND_HZ, btype="bandpass", fs=4000,
+#: output="sos")`` written out, since importing scipy.signal costs every analysis about 0.6 s
+#: (tests/test_vad.py checks the two against each other).
+_ENVELOPE_SOS = np.array(
+    [
+        [0.20657208382614795, 0.4131441676522959, 0.20657208382614795, 1.0, -0.14484559055017837, 0.2883538019066988],
+        [1.0, -2.0, 1.0, 1.0, -1.5767168203685054, 0.6790814317724588],
+    ]
 )
 
 Backend = Literal["neural", "fast"]
@@ -131,7 +137,7 @@ class SpeechDetector:
             sample_rate_hz, DETECTOR_RATE_HZ, 1, dtype="float32", quality="HQ"
         )
         self._pending = np.zeros(0, dtype=np.float32)
-        self._envelope_zi = sosfilt_zi(_ENVELOPE_SOS) * 0.0
+        self._envelope_zi = np.zeros((_ENVELOPE_SOS.shape[0], 2))
         self._n_in = 0
         self._prob: list[np.ndarray] = []
         self._energy: list[np.ndarray] = []
@@ -177,7 +183,7 @@ class SpeechDetector:
         for k in range(1, _ENVELOPE_DECIMATION):
             low_rate += chunk[k::_ENVELOPE_DECIMATION]
         low_rate /= _ENVELOPE_DECIMATION
-        band, self._envelope_zi = sosfilt(_ENVELOPE_SOS, low_rate, zi=self._envelope_zi)
+        band, self._envelope_zi = sosfilt(_ENVELOPE_SOS, low_rate, self._envelope_zi)
         frame_power = np.mean(band.reshape(-1, FRAME_SAMPLES // _ENVELOPE_DECIMATION) ** 2, axis=1)
         self._energy.append((10.0 * np.log10(frame_power + 1e-12)).astype(np.float32))
 
