@@ -207,8 +207,12 @@ class _ScoringPass:
         speech = np.repeat(self._speech_at(np.arange(first, first + counts.shape[0])), counts)
         detection = detection_signal(block.mix, self.info.layout) if self.kind == "mix" else None
         mono_mix = mono_clean = None
-        wanted = self.stoi_pool is not None and block.dialogue is not None  # the audio STOI reads
-        if wanted and any(c.keep_audio and c.s0 < b0 + n and c.s1 > b0 for c in self.open):
+        # the audio STOI reads, kept only when STOI runs
+        if (
+            self.stoi_pool is not None
+            and block.dialogue is not None
+            and any(c.keep_audio and c.s0 < b0 + n and c.s1 > b0 for c in self.open)
+        ):
             mono_mix = listener_mono(block.mix, self.info.layout)
             mono_clean = listener_mono(block.dialogue, self.info.layout)
         for cue in self.open:

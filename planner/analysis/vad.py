@@ -30,7 +30,7 @@ import numpy as np
 import numpy.typing as npt
 import soxr
 
-from planner._typing import AudioArray
+from planner._typing import AudioArray, FloatArray
 from planner.analysis.confidence import low_confidence_spans, moving_mean, span_note
 from planner.analysis.iir import sosfilt
 from planner.analysis.speechmask import Hangover
@@ -137,7 +137,7 @@ class SpeechDetector:
             sample_rate_hz, DETECTOR_RATE_HZ, 1, dtype="float32", quality="HQ"
         )
         self._pending = np.zeros(0, dtype=np.float32)
-        self._envelope_zi = np.zeros((_ENVELOPE_SOS.shape[0], 2))
+        self._envelope_zi: FloatArray = np.zeros((_ENVELOPE_SOS.shape[0], 2))
         self._n_in = 0
         self._prob: list[np.ndarray] = []
         self._energy: list[np.ndarray] = []

@@ -191,7 +191,7 @@ class AudioWriter:
             if self._buffer.size < n_bytes:
                 self._buffer = np.zeros(n_bytes, dtype=np.uint8)
             self.n_clipped += int(float_to_pcm24(np.ascontiguousarray(x).reshape(-1), self._buffer))
-            self._raw.write(memoryview(self._buffer)[:n_bytes])
+            self._raw.write(self._buffer.data[:n_bytes])
         else:
             if self._pcm:  # soundfile turns on libsndfile's clipping (SFC_SET_CLIPPING); count what it clips
                 self.n_clipped += int(np.count_nonzero(np.abs(x) > 1.0))

@@ -71,9 +71,9 @@ def float_to_pcm24(x, out):  # type: ignore[no-untyped-def]
             n_over += 1
         scaled = v * 2147483648.0
         if scaled >= 2147483647.0:
-            code = 0x7FFFFF
+            code = np.int64(0x7FFFFF)
         elif scaled <= -2147483648.0:
-            code = -0x800000
+            code = np.int64(-0x800000)
         else:
             code = np.int64(np.rint(scaled)) >> 8
         out[3 * i] = code & 0xFF
@@ -134,7 +134,7 @@ class PcmReader:
         if self._raw.size < n * self.frame_bytes:
             self._raw = np.empty(n * self.frame_bytes, dtype=np.uint8)
         raw = self._raw[: n * self.frame_bytes]
-        view = memoryview(raw)
+        view = raw.data
         fh.seek(self.offset + start * self.frame_bytes)  # type: ignore[attr-defined]
         got = 0
         while got < raw.size:
