@@ -22,7 +22,7 @@ from planner._typing import FloatArray
 from planner.analysis.align import align, time_cues
 from planner.analysis.channels import detection_signal
 from planner.analysis.checks import MIN_REPORT_CONFIDENCE, HouseStyle, load_style
-from planner.analysis.features import SignalKPower
+from planner.analysis.framepower import SignalKPower
 from planner.analysis.loudness import LoudnessMeter
 from planner.analysis.masking import score_cues
 from planner.analysis.vad import make_detector
@@ -219,7 +219,7 @@ def score_pass(
     k_power: FloatArray | None = None,
 ) -> tuple[CueScore, ...]:
     """Pass 2: per-cue masking scores over the aligned spans (``k_power``: a mix's frame
-    K-weighted powers from pass 1, :class:`~planner.analysis.features.SignalKPower`)."""
+    K-weighted powers from pass 1, :class:`~planner.analysis.framepower.SignalKPower`)."""
     with contextlib.ExitStack() as stack:
         # on two cores: frame features in a second process, the rest here (same scores)
         bands = stack.enter_context(band_worker(programme, activity.frame_s, k_power)) if use_workers(programme) else None

@@ -146,7 +146,7 @@ def test_filter_designs_equal_scipy_signals(stop_db: float, width: float) -> Non
     # designs these replace so that an analysis does not import it.
     from scipy import signal
 
-    from planner.analysis.bands import kaiser_lowpass, kaiser_order, periodic_hann
+    from planner.analysis.firdesign import kaiser_lowpass, kaiser_order, periodic_hann
 
     n_taps, beta = kaiser_order(stop_db, width)
     assert (n_taps, beta) == pytest.approx(signal.kaiserord(stop_db, width), rel=1e-12)

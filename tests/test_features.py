@@ -1,4 +1,4 @@
-"""Frame powers measured once in pass 1 (planner.analysis.features.SignalKPower) for the scoring pass.
+"""Frame powers measured once in pass 1 (planner.analysis.framepower.SignalKPower) for the scoring pass.
 
 References: scipy.signal.sosfilt (the reference library) for the K-weighting of each
 analysed signal, written here from its definition (stereo mid and side; ITU-R BS.775
@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from planner.analysis.features import ProgrammeFeatures, SignalKPower
+from planner.analysis.features import ProgrammeFeatures
+from planner.analysis.framepower import SignalKPower
 from planner.analysis.loudness import LoudnessMeter, k_weighting_sos
 from planner.errors import InputError
 from planner.io.audio import ProgrammeBlock

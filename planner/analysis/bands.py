@@ -42,6 +42,7 @@ import numpy.typing as npt
 from numpy.lib.stride_tricks import sliding_window_view
 
 from planner._typing import AudioArray, FloatArray
+from planner.analysis.firdesign import kaiser_lowpass, kaiser_order, periodic_hann
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz
 from planner.errors import SettingsError
 from planner.jit import compiled
@@ -77,37 +78,6 @@ def _bin_weights(edges_hz: FloatArray, n_fft: int, sample_rate_hz: float) -> Flo
     hi_bin = np.minimum(f + df / 2, sample_rate_hz / 2)
     overlap = np.minimum(hi_bin[:, None], edges_hz[None, :, 1]) - np.maximum(lo_bin[:, None], edges_hz[None, :, 0])
     return np.clip(overlap / df, 0.0, 1.0)
-
-
-# Three textbook designs written out rather than imported: scipy.signal, which has them
-# (windows.hann, kaiserord, firwin), costs every analysis about 0.6 s to import;
-# tests/test_bands.py checks these against it.
-
-
-def periodic_hann(n: int) -> FloatArray:
-    """Periodic Hann window of ``n`` samples, ``0.5 - 0.5 cos(2 pi k / n)`` (``scipy.signal.windows.hann(n, sym=False)``)."""
-    return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
-
-
-def kaiser_order(stop_db: float, width: float) -> tuple[int, float]:
-    """Taps and Kaiser beta of a low-pass FIR with ``stop_db`` attenuation and a transition
-    ``width`` (a fraction of Nyquist), by Kaiser's formulas (Oppenheim and Schafer, Discrete-Time
-    Signal Processing, 3rd ed., Eqs. 7.62-7.63; ``scipy.signal.kaiserord``)."""
-    if stop_db > 50.0:
-        beta = 0.1102 * (stop_db - 8.7)
-    elif stop_db > 21.0:
-        beta = 0.5842 * (stop_db - 21.0) ** 0.4 + 0.07886 * (stop_db - 21.0)
-    else:
-        beta = 0.0
-    return int(np.ceil((stop_db - 7.95) / 2.285 / (np.pi * width) + 1)), beta
-
-
-def kaiser_lowpass(n_taps: int, cutoff_hz: float, beta: float, sample_rate_hz: float) -> FloatArray:
-    """Windowed-sinc low-pass FIR, unity gain at DC (``scipy.signal.firwin`` with a Kaiser window)."""
-    m = np.arange(n_taps) - 0.5 * (n_taps - 1)
-    cutoff = cutoff_hz / (0.5 * sample_rate_hz)
-    taps = cutoff * np.sinc(cutoff * m) * np.kaiser(n_taps, beta)
-    return taps / taps.sum()  # type: ignore[no-any-return]
 
 
 def _stacked_product(a: np.ndarray, b: np.ndarray) -> np.ndarray:

@@ -168,7 +168,7 @@ class LoudnessMeter:
     on_weighted : callable, keyword-only, optional
         Called with the K-weighted samples of the metered channels (LFE left out) of every
         block, float64 ``(n_metered, n)``, before they are squared (e.g.
-        :meth:`planner.analysis.features.SignalKPower.feed`); it must not keep the array.
+        :meth:`planner.analysis.framepower.SignalKPower.feed`); it must not keep the array.
 
     Notes
     -----

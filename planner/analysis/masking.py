@@ -405,7 +405,7 @@ def score_cues(
         given), for callers that read only the SII and the levels.
     k_power : ndarray, optional
         For a mix: the K-weighted power of every frame of every analysed signal, measured
-        in pass 1 (:class:`~planner.analysis.features.SignalKPower`), so that nothing is
+        in pass 1 (:class:`~planner.analysis.framepower.SignalKPower`), so that nothing is
         K-weighted here; ``bands`` must then come from features made with it too. The
         scores equal those computed without it to float32 rounding of the frame powers.
 

@@ -28,7 +28,7 @@ import math
 import numpy as np
 from scipy.ndimage import maximum_filter1d, minimum_filter1d
 
-from planner.analysis.bands import kaiser_lowpass
+from planner.analysis.firdesign import kaiser_lowpass
 from planner.analysis.truepeak import TRUE_PEAK_FIR
 
 #: Oversampling factor of the detector (BS.1770-4 Annex 2: 4x at 48 kHz).
@@ -50,7 +50,7 @@ def interpolator_phases() -> np.ndarray:
     on either. Row ``j`` multiplies input sample ``m - j``.
     """
     n_taps = 2 * _HALF_TAPS * OVERSAMPLING + 1
-    # scipy.signal.firwin(n_taps, 1 / OVERSAMPLING, window=("kaiser", beta)), written out (see bands.py)
+    # scipy.signal.firwin(n_taps, 1 / OVERSAMPLING, window=("kaiser", beta)), written out (firdesign.py)
     h = kaiser_lowpass(n_taps, 1.0 / OVERSAMPLING, _KAISER_BETA, 2.0) * OVERSAMPLING
     h = np.concatenate([h, np.zeros(OVERSAMPLING * (2 * _HALF_TAPS + 1) - n_taps)])
     rows = 2 * _HALF_TAPS + 1
