@@ -117,16 +117,15 @@ class FrameFeatures:
         ``weighted``: the input K-weighted elsewhere, carrying the filter state from call to
         call (:class:`ProgrammeFeatures` filters its signals together); filtered here when omitted.
         """
-        sig = np.asarray(x, dtype=np.float64)
+        samples = np.asarray(x)  # squared in float64 by FrameMeanSquares, read as float32 by the bands
         if self._k_power is not None:
-            means = self._means.feed([sig])
+            means = self._means.feed([samples])
         else:
             if weighted is None:
-                weighted, self._zi = self._sosfilt(self._sos, sig, self._zi)
-            means = self._means.feed([weighted, sig])
+                weighted, self._zi = self._sosfilt(self._sos, np.asarray(samples, dtype=np.float64), self._zi)
+            means = self._means.feed([weighted, samples])
         self._queue.append(self._levels(means))
-        # the band analysis reads float32: a float32 input goes in as it is, not through float64
-        return self._combine(self.band_powers(x if np.asarray(x).dtype == np.float32 else sig) if bands is None else bands)
+        return self._combine(self.band_powers(samples) if bands is None else bands)
 
     def flush(self, bands: FloatArray | None = None) -> FloatArray:
         """The remaining frames (the last one partial), so the total is ``ceil(n / hop)``.

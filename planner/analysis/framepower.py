@@ -37,7 +37,8 @@ def _frame_mean_squares(signals, ends, acc, out):  # type: ignore[no-untyped-def
         for s in range(n_signals):
             total = 0.0
             for i in range(start, stop):
-                total += signals[s, i] * signals[s, i]
+                v = np.float64(signals[s, i])  # exact squares of float32 samples too
+                total += v * v
             acc[s] += total
         acc[n_signals] += stop - start
         if k < ends.size:
