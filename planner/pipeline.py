@@ -121,15 +121,15 @@ def measure(
     settings: AnalysisSettings,
     *,
     progress: Progress | None = None,
-    k_power: SignalKPower | None = None,
+    k_frames: SignalKPower | None = None,
 ) -> tuple[SpeechActivity, LoudnessSummary]:
     """Pass 1: programme loudness and the speech track.
 
     With two or more cores and a programme of at least a minute, the speech detector reads
     the audio in a second process (metering a mix's true peak there too with the fast
     detector) while this one meters the loudness (:mod:`planner.io.parallel`); otherwise
-    one read feeds both. The results are the same. ``k_power`` (a mix only) is fed the
-    meter's K-weighted channels, for the scoring pass.
+    one read feeds both. The results are the same. ``k_frames`` (a mix only) is fed the
+    meter's K-weighted channels; its result is the scoring pass's ``k_power``.
     """
     progress = progress or no_progress
     info = programme.info
@@ -137,7 +137,7 @@ def measure(
     # the worker may meter the true peak to even out the load
     meter = LoudnessMeter(
         info.sample_rate_hz, info.layout, true_peak=not (workers and peaks_beside_speech(programme, settings)),
-        on_weighted=None if k_power is None else k_power.feed,
+        on_weighted=None if k_frames is None else k_frames.feed,
     )  # fmt: skip
     with contextlib.ExitStack() as stack:
         detector = None
@@ -255,7 +255,7 @@ def analyse(
         described = pool.submit(describe_inputs, inputs, out_dir)
         # a mix's signals are K-weighted once, by the loudness meter (linear filters)
         levels = SignalKPower(programme.info) if score and programme.kind == "mix" else None
-        activity, loudness = measure(programme, settings, progress=progress, k_power=levels)
+        activity, loudness = measure(programme, settings, progress=progress, k_frames=levels)
         alignment, timings, uncovered, background_like = align_cues(track.cues, activity, programme.info, settings, style)
         k_power = None if levels is None else levels.result()
         scores = score_pass(programme, timings, activity, settings, progress=progress, k_power=k_power) if score else ()
