@@ -77,41 +77,33 @@ def _cascade(sos, x, zi, y):  # type: ignore[no-untyped-def]
             y[row, i] = v
 
 
+@njit(inline="always")
+def _section(b0, b1, b2, a1, a2, v, z0, z1):  # type: ignore[no-untyped-def]
+    """One sample through one section: ``(out, z0, z1)``, exactly the operations of :func:`_cascade`."""
+    out = b0 * v + z0
+    z0 = b1 * v - a1 * out + z1
+    z1 = b2 * v - a2 * out
+    if abs(z0) < FLUSH and abs(z1) < FLUSH:
+        z0 = z1 = 0.0
+    return out, z0, z1
+
+
 @njit(cache=True, nogil=True)
 def _two_sections_two_rows(sos, x, zi, y):  # type: ignore[no-untyped-def]
     """:func:`_cascade` for two sections and two rows, the states in registers (compiled, numba).
 
-    The same operations in the same order as ``_cascade``; the two rows' recursions are
-    independent, so the processor overlaps them (about 20 % faster than ``_cascade`` on
-    two rows, measured on the K-weighting).
+    The same operations in the same order as ``_cascade`` for each row; the two rows'
+    recursions are independent, so the processor overlaps them (about 20 % faster than
+    ``_cascade`` on two rows, measured on the K-weighting).
     """
     b00, b01, b02, a01, a02 = sos[0, 0], sos[0, 1], sos[0, 2], sos[0, 4], sos[0, 5]
     b10, b11, b12, a11, a12 = sos[1, 0], sos[1, 1], sos[1, 2], sos[1, 4], sos[1, 5]
     p0, p1, q0, q1 = zi[0, 0, 0], zi[0, 0, 1], zi[1, 0, 0], zi[1, 0, 1]  # row 0: sections 0 and 1
     r0, r1, s0, s1 = zi[0, 1, 0], zi[0, 1, 1], zi[1, 1, 0], zi[1, 1, 1]  # row 1
     for i in range(x.shape[1]):
-        v, w = x[0, i], x[1, i]
-        out_v = b00 * v + p0
-        out_w = b00 * w + r0
-        p0 = b01 * v - a01 * out_v + p1
-        r0 = b01 * w - a01 * out_w + r1
-        p1 = b02 * v - a02 * out_v
-        r1 = b02 * w - a02 * out_w
-        if abs(p0) < FLUSH and abs(p1) < FLUSH:
-            p0 = p1 = 0.0
-        if abs(r0) < FLUSH and abs(r1) < FLUSH:
-            r0 = r1 = 0.0
-        v, w = out_v, out_w
-        out_v = b10 * v + q0
-        out_w = b10 * w + s0
-        q0 = b11 * v - a11 * out_v + q1
-        s0 = b11 * w - a11 * out_w + s1
-        q1 = b12 * v - a12 * out_v
-        s1 = b12 * w - a12 * out_w
-        if abs(q0) < FLUSH and abs(q1) < FLUSH:
-            q0 = q1 = 0.0
-        if abs(s0) < FLUSH and abs(s1) < FLUSH:
-            s0 = s1 = 0.0
-        y[0, i], y[1, i] = out_v, out_w
+        v, p0, p1 = _section(b00, b01, b02, a01, a02, x[0, i], p0, p1)
+        w, r0, r1 = _section(b00, b01, b02, a01, a02, x[1, i], r0, r1)
+        y[0, i], q0, q1 = _section(b10, b11, b12, a11, a12, v, q0, q1)
+        y[1, i], s0, s1 = _section(b10, b11, b12, a11, a12, w, s0, s1)
     zi[0, 0, 0], zi[0, 0, 1], zi[1, 0, 0], zi[1, 0, 1] = p0, p1, q0, q1
     zi[0, 1, 0], zi[0, 1, 1], zi[1, 1, 0], zi[1, 1, 1] = r0, r1, s0, s1
