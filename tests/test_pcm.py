@@ -49,8 +49,8 @@ def test_integer_wav_is_read_directly_with_libsndfiles_values(tmp_path, rng, nam
     fmt, subtype = DIRECT[name]
     path = tmp_path / "x.wav"
     expected = _write(path, rng, fmt, subtype, ch=ch)
-    with sf.SoundFile(str(path)) as fh:
-        assert pcm.pcm_reader(path, fh) is not None
+    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
+        assert pcm.pcm_reader(fh, raw) is not None
     for block_frames in (1000, 4096, 65536):
         np.testing.assert_array_equal(_read_all(path, block_frames), expected)
 
@@ -60,8 +60,8 @@ def test_other_formats_go_through_soundfile(tmp_path, rng, name):
     fmt, subtype = INDIRECT[name]
     path = tmp_path / f"x.{fmt.lower()}"
     _write(path, rng, fmt, subtype)
-    with sf.SoundFile(str(path)) as fh:
-        assert pcm.pcm_reader(path, fh) is None
+    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
+        assert pcm.pcm_reader(fh, raw) is None
 
 
 def _chunk(chunk_id: bytes, body: bytes) -> bytes:
@@ -79,8 +79,8 @@ def test_chunks_before_the_data_are_skipped_with_their_padding(tmp_path, rng):
     path.write_bytes(b"RIFF" + struct.pack("<I", len(body)) + body)
     expected = sf.read(str(path), dtype="float32", always_2d=True)[0]
     np.testing.assert_array_equal(expected, (codes / 2.0**23).astype(np.float32))
-    with sf.SoundFile(str(path)) as fh:
-        assert pcm.pcm_reader(path, fh) is not None
+    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
+        assert pcm.pcm_reader(fh, raw) is not None
     np.testing.assert_array_equal(_read_all(path, 100), expected)
 
 
@@ -90,15 +90,16 @@ def test_a_wrong_data_offset_is_caught_by_the_check_against_libsndfile(tmp_path,
     expected = _write(path, rng, "WAV", "PCM_24")
     real = pcm._data_offset
     monkeypatch.setattr(pcm, "_data_offset", lambda *a: real(*a) + 3)
-    with sf.SoundFile(str(path)) as fh:
-        assert pcm.pcm_reader(path, fh) is None
+    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
+        assert pcm.pcm_reader(fh, raw) is None
     np.testing.assert_array_equal(_read_all(path, 1000), expected)
 
 
 def test_a_header_that_is_not_riff_is_left_to_soundfile(tmp_path):
     path = tmp_path / "x.wav"
     path.write_bytes(b"RIFX" + bytes(40))
-    assert pcm._data_offset(path, 2, 3) is None
+    with open(path, "rb") as raw:
+        assert pcm._data_offset(raw, 2, 3) is None
 
 
 @pytest.mark.parametrize("ch", [1, 2, 6], ids=["mono", "stereo", "5.1"])

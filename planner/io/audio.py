@@ -12,7 +12,6 @@ description into a BWF ``bext`` chunk (WAV) or the Vorbis comment (FLAC).
 
 from __future__ import annotations
 
-import contextlib
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass, replace
@@ -155,33 +154,32 @@ def _blocks(
     Integer PCM WAV is read directly (:mod:`planner.io.pcm`, the same values, faster);
     everything else through soundfile.
     """
-    with sf.SoundFile(str(path)) as fh:
-        direct = pcm_reader(path, fh)
+    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
+        direct = pcm_reader(fh, raw)
         if start < n_file and direct is None:
             fh.seek(start)
         as_int = fh.subtype in _EXACT_INT_SUBTYPES
-        with open(path, "rb") if direct is not None else contextlib.nullcontext() as raw:
-            pos = start
-            while pos < stop:
-                n = min(block_frames, stop - pos)
-                n_real = max(0, min(n, n_file - pos))
-                try:
-                    data = _read_float32(fh, n_real, as_int) if direct is None else direct.read(raw, pos, n_real)
-                except RuntimeError as exc:
-                    raise AudioInputError(
-                        f"read failed in frames {pos}-{pos + n_real} ({exc}); the file is damaged: export it again",
-                        path=path,
-                    ) from None
-                if data.shape[0] < n_real:
-                    raise AudioInputError(
-                        f"ends at frame {pos + data.shape[0]} although its header promises {n_file} frames; "
-                        "the file is truncated: export it again",
-                        path=path,
-                    )
-                if n_real < n:
-                    data = np.concatenate([data, np.zeros((n - n_real, n_channels), dtype=np.float32)])
-                yield data
-                pos += n
+        pos = start
+        while pos < stop:
+            n = min(block_frames, stop - pos)
+            n_real = max(0, min(n, n_file - pos))
+            try:
+                data = _read_float32(fh, n_real, as_int) if direct is None else direct.read(raw, pos, n_real)
+            except RuntimeError as exc:
+                raise AudioInputError(
+                    f"read failed in frames {pos}-{pos + n_real} ({exc}); the file is damaged: export it again",
+                    path=path,
+                ) from None
+            if data.shape[0] < n_real:
+                raise AudioInputError(
+                    f"ends at frame {pos + data.shape[0]} although its header promises {n_file} frames; "
+                    "the file is truncated: export it again",
+                    path=path,
+                )
+            if n_real < n:
+                data = np.concatenate([data, np.zeros((n - n_real, n_channels), dtype=np.float32)])
+            yield data
+            pos += n
 
 
 def read_blocks(

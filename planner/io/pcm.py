@@ -21,7 +21,6 @@ from __future__ import annotations
 import os
 import struct
 from collections.abc import Iterator
-from pathlib import Path
 from typing import BinaryIO
 
 import numpy as np
@@ -99,80 +98,78 @@ def riff_chunks(fh: BinaryIO, size: int) -> Iterator[tuple[bytes, int, int]]:
         pos += 8 + chunk_size + (chunk_size & 1)
 
 
-def _data_offset(path: Path, n_channels: int, width: int) -> int | None:
-    """Byte offset of the first sample frame of a WAV/RF64 integer PCM file, or None if it is not one."""
-    with open(path, "rb") as f:
-        fmt_ok = False
-        for chunk_id, body, chunk_size in riff_chunks(f, os.fstat(f.fileno()).st_size):
-            if chunk_id == b"fmt ":
-                f.seek(body)
-                fmt = f.read(min(chunk_size, 40))
-                if len(fmt) < 16:
-                    return None
-                tag, channels, _, _, align, bits = struct.unpack("<HHIIHH", fmt[:16])
-                if tag == _WAVE_FORMAT_EXTENSIBLE and len(fmt) >= 40 and fmt[26:40] == _PCM_GUID_TAIL:
-                    tag = int.from_bytes(fmt[24:26], "little")
-                fmt_ok = tag == _WAVE_FORMAT_PCM and channels == n_channels and bits == 8 * width and align == n_channels * width
-            elif chunk_id == b"data":
-                return body if fmt_ok else None
+def _data_offset(raw: BinaryIO, n_channels: int, width: int) -> int | None:
+    """Byte offset of the first sample frame of a WAV/RF64 integer PCM file open in ``raw``, or None if it is not one."""
+    fmt_ok = False
+    for chunk_id, body, chunk_size in riff_chunks(raw, os.fstat(raw.fileno()).st_size):
+        if chunk_id == b"fmt ":
+            raw.seek(body)
+            fmt = raw.read(min(chunk_size, 40))
+            if len(fmt) < 16:
+                return None
+            tag, channels, _, _, align, bits = struct.unpack("<HHIIHH", fmt[:16])
+            if tag == _WAVE_FORMAT_EXTENSIBLE and len(fmt) >= 40 and fmt[26:40] == _PCM_GUID_TAIL:
+                tag = int.from_bytes(fmt[24:26], "little")
+            fmt_ok = tag == _WAVE_FORMAT_PCM and channels == n_channels and bits == 8 * width and align == n_channels * width
+        elif chunk_id == b"data":
+            return body if fmt_ok else None
     return None
 
 
 class PcmReader:
     """Reads frames of one integer PCM WAV file as float32 ``(n, n_channels)``; make it with :func:`pcm_reader`."""
 
-    def __init__(self, path: Path, offset: int, n_channels: int, width: int) -> None:
-        self.path = path
+    def __init__(self, offset: int, n_channels: int, width: int) -> None:
         self.offset = offset
         self.n_channels = n_channels
         self.width = width
         self.frame_bytes = n_channels * width
         self._raw = np.empty(0, dtype=np.uint8)  # reused: fresh megabyte buffers cost page faults
 
-    def read(self, fh: object, start: int, n: int) -> AudioArray:
-        """Frames ``[start, start + n)`` from the open binary file ``fh``; fewer if the file ends first."""
+    def read(self, raw: BinaryIO, start: int, n: int) -> AudioArray:
+        """Frames ``[start, start + n)`` from the file open in ``raw``; fewer if the file ends first."""
         if self._raw.size < n * self.frame_bytes:
             self._raw = np.empty(n * self.frame_bytes, dtype=np.uint8)
-        raw = self._raw[: n * self.frame_bytes]
-        view = raw.data
-        fh.seek(self.offset + start * self.frame_bytes)  # type: ignore[attr-defined]
+        buffer = self._raw[: n * self.frame_bytes]
+        view = buffer.data
+        raw.seek(self.offset + start * self.frame_bytes)
         got = 0
-        while got < raw.size:
-            k = fh.readinto(view[got:])  # type: ignore[attr-defined]
+        while got < buffer.size:
+            k = raw.readinto(view[got:])  # type: ignore[attr-defined]
             if not k:
                 break
             got += k
         n_read = got // self.frame_bytes
         out = np.empty((n_read, self.n_channels), dtype=np.float32)
         if self.width == 3:
-            _pcm24_to_float32(raw[: n_read * self.frame_bytes], out.reshape(-1))
+            _pcm24_to_float32(buffer[: n_read * self.frame_bytes], out.reshape(-1))
         else:
-            np.multiply(raw[: n_read * self.frame_bytes].view("<i2").reshape(n_read, self.n_channels), _SCALE_16, out=out)
+            np.multiply(buffer[: n_read * self.frame_bytes].view("<i2").reshape(n_read, self.n_channels), _SCALE_16, out=out)
         return out
 
 
-def pcm_reader(path: Path, info: sf._SoundFileInfo | sf.SoundFile) -> PcmReader | None:
-    """A direct reader for ``path`` if it is integer PCM WAV that reads the same as through libsndfile, else None.
+def pcm_reader(fh: sf.SoundFile, raw: BinaryIO) -> PcmReader | None:
+    """A direct reader of one file, open as ``fh`` (soundfile) and ``raw`` (binary), if it is
+    integer PCM WAV that reads the same as through libsndfile, else None.
 
-    ``info``: the file's soundfile description (format, subtype, channels, frames).
+    The check reads through ``fh``, which is left at no particular frame.
     """
-    width = WIDTHS.get(str(info.subtype))
-    if width is None or info.format not in _CONTAINERS or info.endian not in ("FILE", "LITTLE"):
+    width = WIDTHS.get(str(fh.subtype))
+    if width is None or fh.format not in _CONTAINERS or fh.endian not in ("FILE", "LITTLE"):
         return None
     try:
-        offset = _data_offset(path, int(info.channels), width)
+        offset = _data_offset(raw, int(fh.channels), width)
     except (OSError, struct.error):
         return None
     if offset is None:
         return None
-    reader = PcmReader(path, offset, int(info.channels), width)
-    n_frames = int(info.frames)
+    reader = PcmReader(offset, int(fh.channels), width)
+    n_frames = int(fh.frames)
     n = min(_CHECK_FRAMES, n_frames)
-    with sf.SoundFile(str(path)) as fh, open(path, "rb") as raw:
-        for start in sorted({0, (n_frames - n) // 2, n_frames - n}):
-            fh.seek(start)
-            expected = fh.read(n, dtype="int32", always_2d=True).astype(np.float32)
-            expected *= _SCALE_32
-            if not np.array_equal(reader.read(raw, start, n), expected):
-                return None
+    for start in sorted({0, (n_frames - n) // 2, n_frames - n}):
+        fh.seek(start)
+        expected = fh.read(n, dtype="int32", always_2d=True).astype(np.float32)
+        expected *= _SCALE_32
+        if not np.array_equal(reader.read(raw, start, n), expected):
+            return None
     return reader
