@@ -158,3 +158,15 @@ def test_zero_ramps_are_allowed_at_the_programme_edges() -> None:
     env = GainEnvelope([ev], FS, "background", duration_s=3.0)
     g = env.block(0, 3 * FS)
     assert np.all(g == np.float32(10.0 ** (-6.0 / 20.0)))  # constant from the first sample to the last
+
+
+def test_touches_exactly_the_blocks_that_move() -> None:
+    # ground truth: the reference curve is non-zero only in (start - ramp_in, end + ramp_out)
+    env = GainEnvelope([event(1, 1.0, 1.2, cut_db=-4.0, ramp_in_ms=100.0, ramp_out_ms=100.0)], FS, "background")
+    block = 4800  # 0.1 s
+    for start in range(0, 3 * FS, block):
+        moves = any(reference_db((start + i) / FS, 1.0, 1.2, 0.1, 0.1, -4.0) != 0.0 for i in range(block))
+        if moves:
+            assert env.touches(start, block), start
+        if not env.touches(start, block):
+            assert np.all(env.block(start, block) == np.float32(1.0)), start

@@ -17,7 +17,7 @@ and no sample is ever moved further than some event planned.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Literal
 
 import numpy as np
@@ -109,12 +109,20 @@ class GainEnvelope:
                 out.append((a, b))
         return tuple(out)
 
+    def touches(self, start_frame: int, n: int) -> bool:
+        """Whether any event acts on samples ``start_frame .. start_frame + n - 1`` (else the gain there is exactly 1.0)."""
+        return bool(((self._first < start_frame + n) & (self._stop > start_frame)).any())
+
     def block_db(self, start_frame: int, n: int) -> np.ndarray:
         """Gain in dB for samples ``start_frame .. start_frame + n - 1``, float64 ``(n,)``; 0.0 outside events."""
         return self._block_db(start_frame, n)[0]
 
     def _block_db(self, start_frame: int, n: int) -> tuple[np.ndarray, int, int]:
-        """The dB gain and the sub-range ``[lo, hi)`` of the block that any event touches."""
+        """The dB gain and the sub-range ``[lo, hi)`` of the block that any event touches.
+
+        Each event's curve is evaluated on its ramps only: between them ``w`` is exactly 1, so
+        the gain there is the event's own (the same values as evaluating ``w`` everywhere).
+        """
         out = np.zeros(n, dtype=np.float64)
         hit = np.flatnonzero((self._first < start_frame + n) & (self._stop > start_frame))
         if hit.size == 0:
@@ -125,8 +133,18 @@ class GainEnvelope:
         for k in hit.tolist():
             lo = max(int(self._first[k]) - start_frame, 0)
             hi = min(int(self._stop[k]) - start_frame, n)
-            t = (start_frame + np.arange(lo, hi, dtype=np.float64)) / fs
-            out[lo:hi] = combine(out[lo:hi], self._gain_db[k] * _shape(t, self._t0[k], self._t1[k], self._t2[k], self._t3[k]))
+            t0, t1, t2, t3, gain_db = (float(v[k]) for v in (self._t0, self._t1, self._t2, self._t3, self._gain_db))
+            # samples lo..rise-1 have t < t1 (ramp in), fall..hi-1 have t > t2 (ramp out)
+            rise = _first_at(start_frame, lo, hi, fs, lambda t: t >= t1)  # noqa: B023 (used at once)
+            fall = _first_at(start_frame, rise, hi, fs, lambda t: t > t2)  # noqa: B023
+            if rise > lo:
+                t = (start_frame + np.arange(lo, rise, dtype=np.float64)) / fs
+                out[lo:rise] = combine(out[lo:rise], gain_db * _ramp_in(t, t0, t1))
+            if fall > rise:
+                out[rise:fall] = combine(out[rise:fall], gain_db)
+            if hi > fall:
+                t = (start_frame + np.arange(fall, hi, dtype=np.float64)) / fs
+                out[fall:hi] = combine(out[fall:hi], gain_db * _ramp_out(t, t2, t3))
             lo_all, hi_all = min(lo_all, lo), max(hi_all, hi)
         return out, lo_all, hi_all
 
@@ -139,7 +157,11 @@ class GainEnvelope:
         db, lo, hi = self._block_db(start_frame, n)
         gain = np.ones(n, dtype=np.float32)
         if hi > lo:
-            gain[lo:hi] = np.power(10.0, db[lo:hi] / 20.0)
+            # one power per run of equal values (a held gain is one run; every ramp sample its own)
+            part = db[lo:hi]
+            starts = np.concatenate([[0], np.flatnonzero(part[1:] != part[:-1]) + 1])
+            lengths = np.diff(np.append(starts, part.size))
+            gain[lo:hi] = np.repeat(np.power(10.0, part[starts] / 20.0), lengths)
         return gain
 
     def max_step_db(self) -> float:
@@ -152,15 +174,28 @@ class GainEnvelope:
         return float(np.max(np.abs(self._gain_db) * math.pi / (2.0 * np.maximum(ramp_samples, 1.0))))
 
 
-def _shape(t: np.ndarray, t0: float, t1: float, t2: float, t3: float) -> np.ndarray:
-    """Raised-cosine ramp in over [t0, t1], 1 over [t1, t2], raised-cosine ramp out over [t2, t3], 0 outside."""
-    w = np.ones_like(t)
-    # cos(0) = 1 and cos(pi) = -1 exactly in IEEE arithmetic, so w is exactly 0 at t0 and t3.
-    # A zero-length ramp (programme start or end only) is a plain edge.
-    rise = t < t1
-    if rise.any():
-        w[rise] = 0.5 - 0.5 * np.cos(np.pi * np.clip((t[rise] - t0) / (t1 - t0), 0.0, 1.0)) if t1 > t0 else 0.0
-    fall = t > t2
-    if fall.any():
-        w[fall] = 0.5 + 0.5 * np.cos(np.pi * np.clip((t[fall] - t2) / (t3 - t2), 0.0, 1.0)) if t3 > t2 else 0.0
-    return w
+def _first_at(start_frame: int, lo: int, hi: int, fs: float, reached: Callable[[float], bool]) -> int:
+    """First sample index in ``[lo, hi]`` whose time ``(start_frame + i) / fs`` satisfies the
+    monotone condition ``reached`` (``hi`` if none), with the same float arithmetic as the curve."""
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if reached((start_frame + float(mid)) / fs):
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo
+
+
+def _ramp_in(t: np.ndarray, t0: float, t1: float) -> np.ndarray:
+    """Raised-cosine ramp in over [t0, t1] at times ``t < t1`` (a zero-length ramp is a plain edge: 0)."""
+    # cos(0) = 1 exactly in IEEE arithmetic, so w is exactly 0 at t0.
+    if not t1 > t0:
+        return np.zeros_like(t)
+    return 0.5 - 0.5 * np.cos(np.pi * np.clip((t - t0) / (t1 - t0), 0.0, 1.0))
+
+
+def _ramp_out(t: np.ndarray, t2: float, t3: float) -> np.ndarray:
+    """Raised-cosine ramp out over [t2, t3] at times ``t > t2`` (zero length: 0); exactly 0 at t3 (cos(pi) = -1)."""
+    if not t3 > t2:
+        return np.zeros_like(t)
+    return 0.5 + 0.5 * np.cos(np.pi * np.clip((t - t2) / (t3 - t2), 0.0, 1.0))

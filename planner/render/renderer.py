@@ -509,10 +509,10 @@ def _process(
             yield blk.mix, out, None
         else:
             assert blk.dialogue is not None and blk.background is not None
-            gd = g_dialogue.block(blk.start_frame, n)
-            gb = g_background.block(blk.start_frame, n)
-            d = blk.dialogue if (gd == 1.0).all() else blk.dialogue * gd[:, None]
-            b = blk.background if (gb == 1.0).all() else blk.background * gb[:, None]
+            d, b = (
+                x if not env.touches(blk.start_frame, n) else x * env.block(blk.start_frame, n)[:, None]
+                for env, x in ((g_dialogue, blk.dialogue), (g_background, blk.background))
+            )
             yield blk.mix, d + b, (d, b)
         progress(stage, min((blk.start_frame + n) / fs, total_s), total_s)
     if reducer is not None:
