@@ -17,7 +17,7 @@ and no sample is ever moved further than some event planned.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from typing import Literal
 
 import numpy as np
@@ -135,8 +135,8 @@ class GainEnvelope:
             hi = min(int(self._stop[k]) - start_frame, n)
             t0, t1, t2, t3, gain_db = (float(v[k]) for v in (self._t0, self._t1, self._t2, self._t3, self._gain_db))
             # samples lo..rise-1 have t < t1 (ramp in), fall..hi-1 have t > t2 (ramp out)
-            rise = _first_at(start_frame, lo, hi, fs, lambda t: t >= t1)  # noqa: B023 (used at once)
-            fall = _first_at(start_frame, rise, hi, fs, lambda t: t > t2)  # noqa: B023
+            rise = _first_at(start_frame, lo, hi, fs, t1, after=False)
+            fall = _first_at(start_frame, rise, hi, fs, t2, after=True)
             if rise > lo:
                 t = (start_frame + np.arange(lo, rise, dtype=np.float64)) / fs
                 out[lo:rise] = combine(out[lo:rise], gain_db * _ramp_in(t, t0, t1))
@@ -174,12 +174,13 @@ class GainEnvelope:
         return float(np.max(np.abs(self._gain_db) * math.pi / (2.0 * np.maximum(ramp_samples, 1.0))))
 
 
-def _first_at(start_frame: int, lo: int, hi: int, fs: float, reached: Callable[[float], bool]) -> int:
-    """First sample index in ``[lo, hi]`` whose time ``(start_frame + i) / fs`` satisfies the
-    monotone condition ``reached`` (``hi`` if none), with the same float arithmetic as the curve."""
+def _first_at(start_frame: int, lo: int, hi: int, fs: float, limit_s: float, *, after: bool) -> int:
+    """First sample index in ``[lo, hi]`` whose time ``(start_frame + i) / fs`` is at least
+    ``limit_s`` (past it, when ``after``), ``hi`` if none; the same float arithmetic as the curve."""
     while lo < hi:
         mid = (lo + hi) // 2
-        if reached((start_frame + float(mid)) / fs):
+        t = (start_frame + float(mid)) / fs
+        if t > limit_s or (t == limit_s and not after):
             hi = mid
         else:
             lo = mid + 1
