@@ -133,7 +133,7 @@ def measure(
     """
     progress = progress or no_progress
     info = programme.info
-    workers = use_workers(programme)
+    workers = use_workers(programme.info)
     # the worker may meter the true peak to even out the load
     meter = LoudnessMeter(
         info.sample_rate_hz, info.layout, true_peak=not (workers and peaks_beside_speech(programme, settings)),
@@ -222,7 +222,7 @@ def score_pass(
     K-weighted powers from pass 1, :class:`~planner.analysis.framepower.SignalKPower`)."""
     with contextlib.ExitStack() as stack:
         # on two cores: frame features in a second process, the rest here (same scores)
-        bands = stack.enter_context(band_worker(programme, activity.frame_s, k_power)) if use_workers(programme) else None
+        bands = stack.enter_context(band_worker(programme, activity.frame_s, k_power)) if use_workers(programme.info) else None
         return score_cues(
             iter_programme(programme),
             info=programme.info,

@@ -6,11 +6,13 @@ passes) and writes the analysis folder's outputs atomically; none of them prints
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import json
-import tempfile
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
 
 from planner.folder import RunResult, input_paths, relative_path, retimed_track, write_outputs
@@ -23,7 +25,7 @@ from planner.pipeline import Inputs, analyse
 from planner.planning.scenes import make_plan
 from planner.progress import Progress
 from planner.render.renderer import RenderReport, plan_sha256, render
-from planner.render.verify import VerifyReport, VerifyRow, verify, write_verify_csv
+from planner.render.verify import VerifyReport, VerifyRow, verify, verifying_stems, write_verify_csv
 from planner.report.clips import extract_clips
 from planner.report.html import render_html, write_html
 from planner.settings import AnalysisSettings, PlanSettings, RenderSettings
@@ -133,14 +135,18 @@ class RenderRun:
     written: dict[str, Path]
 
 
-def _plan_and_programme(out_dir: Path) -> tuple[Plan, Inputs, Programme]:
+def _plan_and_programme(out_dir: Path, *, check: bool = True) -> tuple[Plan, Inputs, Programme, Callable[[], None]]:
+    """The folder's plan, its inputs and programme, and the check that the audio is what the
+    plan was made from (its SHA-256; already made when ``check``, else for the caller to call)."""
     path = Path(out_dir) / "plan.json"
     plan = load_plan(path)
     inputs = input_paths(plan.analysis, out_dir)
     roles = {"mix": inputs.mix, "dialogue": inputs.dialogue, "background": inputs.background}
-    check_audio(plan, {k: v for k, v in roles.items() if v is not None}, path)
     programme = open_programme(mix=inputs.mix, dialogue=inputs.dialogue, background=inputs.background)
-    return plan, inputs, programme
+    audio_check = partial(check_audio, plan, {k: v for k, v in roles.items() if v is not None}, path)
+    if check:
+        audio_check()
+    return plan, inputs, programme, audio_check
 
 
 def run_render(
@@ -153,26 +159,29 @@ def run_render(
 ) -> RenderRun:
     """Render the plan in ``out_dir`` to ``out_path``, then verify it (``cueplan render``).
 
-    With stems, the processed stems are verified exactly (written to ``stems_out`` when
-    given, else to a temporary folder that is removed afterwards).
+    The processed stems of a stems programme are verified exactly, scored beside the render
+    (:func:`~planner.render.verify.verifying_stems`; written to ``stems_out`` only when
+    given); a mix's output is read back and verified as a mix. The inputs' SHA-256 is
+    checked in a thread beside the measuring pass, before anything is written.
     """
     out_dir = Path(out_dir)
-    plan, inputs, programme = _plan_and_programme(out_dir)
+    plan, inputs, programme, audio_check = _plan_and_programme(out_dir, check=False)
     guard = inputs.all_paths()
     refuse_inputs(out_path, guard)
-    with tempfile.TemporaryDirectory(dir=out_dir, prefix=".stems-") as scratch:
-        stems_dir = stems_out if stems_out is not None else (Path(scratch) if programme.kind == "stems" else None)
-        report = render(plan, programme, out_path, settings, stems_out=stems_dir, progress=progress)
-        processed = None
-        if stems_dir is not None and programme.kind == "stems":
-            processed = open_programme(dialogue=stems_dir / "dialogue.wav", background=stems_dir / "background.wav")
-        checked = verify(
-            plan,
-            open_programme(mix=out_path),
-            processed_stems=processed,
-            progress=progress,
-            level_gain_db=report.gain_applied_db,
-        )
+    from_stems = verifying_stems(plan, programme) if programme.kind == "stems" else contextlib.nullcontext(None)
+    with from_stems as stems_report, ThreadPoolExecutor(1, thread_name_prefix="cueplan-hash") as pool:
+        hashed = pool.submit(audio_check)
+        try:
+            report = render(
+                plan, programme, out_path, settings, stems_out=stems_out, progress=progress, before_writing=hashed.result,
+            )  # fmt: skip
+        finally:
+            hashed.cancel()
+        if stems_report is not None:
+            checked = stems_report(report.gain_applied_db)
+    if stems_report is None:
+        rendered = open_programme(mix=out_path)
+        checked = verify(plan, rendered, progress=progress, level_gain_db=report.gain_applied_db)
     # The record names the output relative to the analysis folder, like the inputs.
     report = dataclasses.replace(report, output_path=relative_path(Path(out_path), out_dir))
     written = {"rendered": Path(out_path), "render": out_dir / RENDER_FILE}
@@ -194,7 +203,7 @@ def _write_verify(checked: VerifyReport, out_dir: Path, guard: Sequence[Path]) -
 def run_verify(out_dir: Path, rendered: Path, *, progress: Progress | None = None) -> tuple[VerifyReport, dict[str, Path]]:
     """Re-score the planned cues on a rendered file (``cueplan verify``), scored as a mix."""
     out_dir = Path(out_dir)
-    plan, inputs, _ = _plan_and_programme(out_dir)
+    plan, inputs, _, _ = _plan_and_programme(out_dir)
     guard = inputs.all_paths()
     level_gain_db = 0.0
     render_path = out_dir / RENDER_FILE

@@ -48,12 +48,12 @@ def test_workers_give_the_single_process_analysis(
 def test_use_workers_needs_two_cores_and_a_long_programme(programme_files: dict[str, Path], monkeypatch: pytest.MonkeyPatch) -> None:
     programme = open_programme(mix=programme_files["mix"])
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0}, raising=False)
-    assert not parallel.use_workers(programme)
+    assert not parallel.use_workers(programme.info)
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
     monkeypatch.setattr(parallel, "PARALLEL_MIN_S", programme.info.duration_s + 1.0)
-    assert not parallel.use_workers(programme)
+    assert not parallel.use_workers(programme.info)
     monkeypatch.setattr(parallel, "PARALLEL_MIN_S", programme.info.duration_s)
-    assert parallel.use_workers(programme)
+    assert parallel.use_workers(programme.info)
 
 
 def test_worker_error_reaches_the_caller(tmp_path: Path) -> None:
@@ -77,3 +77,16 @@ def test_worker_that_dies_raises(programme_files: dict[str, Path], monkeypatch: 
     with parallel.band_worker(open_programme(mix=programme_files["mix"]), 0.01) as items:
         with pytest.raises(CueplanError, match="exit code 7"):
             next(items)
+
+
+def _divide(a: float, b: float) -> float:
+    return a / b
+
+
+def test_call_worker_returns_the_result_or_raises_the_error() -> None:
+    # Ground truth: Python's own arithmetic, and its ZeroDivisionError
+    with parallel.call_worker(_divide, (3.0, 4.0)) as result:
+        assert result() == 0.75
+    with parallel.call_worker(_divide, (1.0, 0.0)) as result:
+        with pytest.raises(ZeroDivisionError):
+            result()

@@ -9,6 +9,7 @@ gain over every speech frame of the cue (the ramps lie outside the speech).
 from __future__ import annotations
 
 import csv
+import importlib
 from pathlib import Path
 
 import numpy as np
@@ -20,11 +21,13 @@ from planner.demo.synth import synth_programme
 from planner.io.audio import ProgrammeBlock, open_programme
 from planner.model import CueScore, Plan
 from planner.render.renderer import STEM_NAMES, render
-from planner.render.verify import VERIFY_COLUMNS, verify, write_verify_csv
+from planner.render.verify import VERIFY_COLUMNS, verify, verifying_stems, write_verify_csv
 from planner.settings import AnalysisSettings, RenderSettings
 
 CUT_DB = -9.0
 LINES = (0, 2)  # the lines that get an event
+# the module (planner.render exports a function of the same name)
+verify_module = importlib.import_module("planner.render.verify")
 
 
 def score_arrays(plan: Plan, dialogue: np.ndarray, background: np.ndarray) -> dict[int, CueScore]:
@@ -119,3 +122,26 @@ def test_verify_csv_has_one_row_per_planned_cue(case: tuple[OnDisk, Plan, dict[i
     for got, row in zip(rows, report.rows):
         assert float(got["measured_after"]) == pytest.approx(row.measured_after, abs=5e-4)
         assert got["reached_target"] == ("yes" if row.reached else "no")
+
+
+@pytest.mark.parametrize("beside", [False, True], ids=["after", "second-process"])
+def test_stems_scored_beside_the_render_match_verifying_the_written_stems(
+    case: tuple[OnDisk, Plan, dict[int, CueScore]], tmp_path: Path, monkeypatch: pytest.MonkeyPatch, beside: bool
+) -> None:
+    """Reference: verify() reading the processed stems the render wrote (24-bit files)."""
+    disk, plan, truth = case
+    monkeypatch.setattr(verify_module, "use_workers", lambda info: beside)
+    programme = open_programme(dialogue=disk.dialogue, background=disk.background)
+    with verifying_stems(plan, programme) as report_for:
+        rep = render(plan, programme, tmp_path / "out.wav", RenderSettings(loudness="-30"), stems_out=tmp_path)
+        streamed = report_for(rep.gain_applied_db)
+    assert abs(rep.gain_applied_db) > 3.0  # the normalisation really moved the level
+    processed = open_programme(dialogue=tmp_path / STEM_NAMES[0], background=tmp_path / STEM_NAMES[1])
+    files = verify(plan, open_programme(mix=tmp_path / "out.wav"), processed_stems=processed, level_gain_db=rep.gain_applied_db)
+    assert streamed.method == files.method == "stems" and streamed.level_gain_db == rep.gain_applied_db
+    assert [r.cue_index for r in streamed.rows] == [r.cue_index for r in files.rows]
+    for got, ref in zip(streamed.rows, files.rows):
+        assert got.measured_after is not None and ref.measured_after is not None
+        # the same samples, unscaled and unrounded against normalised and rounded to 24 bits
+        assert got.measured_after == pytest.approx(ref.measured_after, abs=0.002)
+        assert got.measured_after == pytest.approx(truth[got.cue_index].sii, abs=0.005)  # the constant-gain truth

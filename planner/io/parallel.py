@@ -36,7 +36,7 @@ from planner.analysis.vad import make_detector
 from planner.errors import CueplanError
 from planner.io.audio import Programme, iter_programme
 from planner.jit import ready
-from planner.model import SpeechActivity
+from planner.model import AudioInfo, SpeechActivity
 from planner.settings import AnalysisSettings
 
 #: Programmes at least this long use worker processes; for shorter ones starting a
@@ -47,13 +47,13 @@ QUEUE_BLOCKS = 8
 _POLL_S = 1.0
 
 
-def use_workers(programme: Programme) -> bool:
-    """Whether the passes over ``programme`` should use a second process (two or more usable cores)."""
+def use_workers(info: AudioInfo) -> bool:
+    """Whether a pass over audio of this length should use a second process (two or more usable cores)."""
     try:
         cpus = len(os.sched_getaffinity(0))
     except AttributeError:  # not on Linux
         cpus = os.cpu_count() or 1
-    return cpus > 1 and programme.info.duration_s >= PARALLEL_MIN_S
+    return cpus > 1 and info.duration_s >= PARALLEL_MIN_S
 
 
 def _context() -> multiprocessing.context.ForkContext | multiprocessing.context.SpawnContext:
@@ -184,3 +184,14 @@ def band_worker(
     """
     with _worker(_band_items, (programme, frame_s, k_power), QUEUE_BLOCKS) as items:
         yield items
+
+
+def _call(target: Callable[..., Any], args: tuple[Any, ...]) -> Iterator[Any]:
+    yield target(*args)
+
+
+@contextlib.contextmanager
+def call_worker(target: Callable[..., Any], args: tuple[Any, ...]) -> Iterator[Callable[[], Any]]:
+    """Start ``target(*args)`` in a second process; the context gives a function that waits for its result."""
+    with _worker(_call, (target, args), 1) as items:
+        yield lambda: next(items)

@@ -36,7 +36,14 @@ import numpy as np
 from planner._typing import AudioArray
 from planner.analysis.loudness import LoudnessMeter
 from planner.errors import PlanFileError, SettingsError
-from planner.io.audio import DEFAULT_BLOCK_FRAMES, STEM_LENGTH_TOLERANCE_FRAMES, AudioWriter, Programme, iter_programme
+from planner.io.audio import (
+    DEFAULT_BLOCK_FRAMES,
+    STEM_LENGTH_TOLERANCE_FRAMES,
+    AudioWriter,
+    Programme,
+    ProgrammeBlock,
+    iter_programme,
+)
 from planner.io.exports import plan_json_chunks
 from planner.io.files import refuse_inputs
 from planner.model import AudioInfo, LoudnessSummary, Plan, Record
@@ -114,6 +121,7 @@ def render(
     stems_out: Path | None = None,
     progress: Progress | None = None,
     block_frames: int = DEFAULT_BLOCK_FRAMES,
+    before_writing: Callable[[], object] | None = None,
 ) -> RenderReport:
     """Apply a plan to a programme and write the clearer-dialogue version.
 
@@ -136,6 +144,9 @@ def render(
         ``"render: measuring limiter (n)"`` (only when the limiter acts), ``"render: writing"``.
     block_frames : int
         Frames per block read.
+    before_writing : callable, optional
+        Called after the measuring passes, before anything is written (a check that runs
+        beside them, such as the inputs' hashes); an exception it raises stops the render.
 
     Returns
     -------
@@ -167,10 +178,7 @@ def render(
         Path(stems_out).mkdir(parents=True, exist_ok=True)
     fs = info.sample_rate_hz
     total_s = info.duration_s
-    envelopes = (
-        GainEnvelope(plan.events, fs, "dialogue", duration_s=total_s),
-        GainEnvelope(plan.events, fs, "background", duration_s=total_s),
-    )
+    envelopes = gain_envelopes(plan, info)
 
     # The analysis metered the same input blocks (pipeline: ``block.mix``): no need to meter them again.
     recorded = plan.analysis.loudness
@@ -178,6 +186,7 @@ def render(
     with _Passes(plan, programme, envelopes, block_frames, progress or no_progress, out_path) as passes:
         return _render_passes(
             passes, plan, programme, out_path, settings, stem_paths, inputs, before_summary, fs, total_s,
+            before_writing,
         )  # fmt: skip
 
 
@@ -192,6 +201,7 @@ def _render_passes(
     before_summary: LoudnessSummary | None,
     fs: int,
     total_s: float,
+    before_writing: Callable[[], object] | None,
 ) -> RenderReport:
     """The measuring and writing passes of :func:`render` and its report."""
     info = programme.info
@@ -223,6 +233,8 @@ def _render_passes(
                     f"{gain_db - first:.2f} dB"
                 )
 
+    if before_writing is not None:
+        before_writing()
     limiter = None if ceiling is None else TruePeakLimiter(fs, info.n_channels, ceiling_dbtp=ceiling)
     writers = _Outputs(out_path, stem_paths, info, inputs, _description(sha, settings, label, ceiling, programme.kind))
     input_summary, after_summary = passes.write(writers, gain_db, limiter, with_input=before_summary is None)
@@ -482,6 +494,44 @@ class _Consumer:
             raise self._error
 
 
+def gain_envelopes(plan: Plan, info: AudioInfo) -> tuple[GainEnvelope, GainEnvelope]:
+    """The plan's dialogue and background gain curves at the programme's rate."""
+    fs, total_s = info.sample_rate_hz, info.duration_s
+    return (
+        GainEnvelope(plan.events, fs, "dialogue", duration_s=total_s),
+        GainEnvelope(plan.events, fs, "background", duration_s=total_s),
+    )
+
+
+def processed_stems(
+    programme: Programme, envelopes: tuple[GainEnvelope, GainEnvelope], *, block_frames: int = DEFAULT_BLOCK_FRAMES
+) -> Iterator[ProgrammeBlock]:
+    """The processed stems of a stems programme, block by block, before the loudness gain.
+
+    Each block is ``ProgrammeBlock(start, d + b, d, b)``: the dialogue and background times
+    their envelopes (:func:`gain_envelopes`), the samples :func:`render` writes to
+    ``stems_out`` and sums to its output (times its loudness gain).
+    """
+    for _, processed in _stem_blocks(programme, envelopes, block_frames):
+        yield processed
+
+
+def _stem_blocks(
+    programme: Programme, envelopes: tuple[GainEnvelope, GainEnvelope], block_frames: int
+) -> Iterator[tuple[ProgrammeBlock, ProgrammeBlock]]:
+    """Each input block of a stems programme with its processed block (:func:`processed_stems`)."""
+    if programme.kind != "stems":
+        raise SettingsError("processed stems need a stems programme (dialogue and background)")
+    for blk in iter_programme(programme, block_frames=block_frames):
+        assert blk.dialogue is not None and blk.background is not None
+        n = blk.n_frames
+        d, b = (
+            x if not env.touches(blk.start_frame, n) else x * env.block(blk.start_frame, n)[:, None]
+            for env, x in zip(envelopes, (blk.dialogue, blk.background))
+        )
+        yield blk, ProgrammeBlock(blk.start_frame, d + b, d, b)
+
+
 def _process(
     plan: Plan,
     programme: Programme,
@@ -499,25 +549,19 @@ def _process(
     fs = info.sample_rate_hz
     total_s = info.duration_s
     g_dialogue, g_background = envelopes
-    reducer = None
-    if programme.kind == "mix":
-        reducer = MixReducer(g_background, g_dialogue, layout=info.layout, activity=plan.analysis.activity)
+    if programme.kind == "stems":
+        for blk, done in _stem_blocks(programme, envelopes, block_frames):
+            assert done.dialogue is not None and done.background is not None
+            yield blk.mix, done.mix, (done.dialogue, done.background)
+            progress(stage, min((blk.start_frame + blk.n_frames) / fs, total_s), total_s)
+        return
+    reducer = MixReducer(g_background, g_dialogue, layout=info.layout, activity=plan.analysis.activity)
     for blk in iter_programme(programme, block_frames=block_frames):
-        n = blk.n_frames
-        if reducer is not None:
-            out, _ = reducer.process(blk.mix)
-            yield blk.mix, out, None
-        else:
-            assert blk.dialogue is not None and blk.background is not None
-            d, b = (
-                x if not env.touches(blk.start_frame, n) else x * env.block(blk.start_frame, n)[:, None]
-                for env, x in ((g_dialogue, blk.dialogue), (g_background, blk.background))
-            )
-            yield blk.mix, d + b, (d, b)
-        progress(stage, min((blk.start_frame + n) / fs, total_s), total_s)
-    if reducer is not None:
-        out, _ = reducer.flush()
-        yield None, out, None
+        out, _ = reducer.process(blk.mix)
+        yield blk.mix, out, None
+        progress(stage, min((blk.start_frame + blk.n_frames) / fs, total_s), total_s)
+    out, _ = reducer.flush()
+    yield None, out, None
 
 
 def _check_matches(plan: Plan, programme: Programme) -> None:

@@ -2,7 +2,9 @@
 
 The rendered programme is scored by :func:`planner.analysis.masking.score_cues` with the
 plan's own aligned timings, speech activity and analysis settings, so the only thing that
-differs from the analysis is the audio. With the processed stems the scores are exact
+differs from the analysis is the audio: read from the rendered files (:func:`verify`), or,
+for a stems render, the processed stems computed again beside the render
+(:func:`verifying_stems`, so that nothing is written to be read back). With the processed stems the scores are exact
 (``kind="stems"``); from the rendered mix alone they are estimates (``kind="mix"``, with
 the estimators' confidence), and conservative ones: the speech-free context the estimators
 read around a cue was not ducked, so they take the background under the cue to be louder
@@ -24,6 +26,7 @@ import dataclasses
 import io
 from dataclasses import dataclass
 from pathlib import Path
+from collections.abc import Callable, Iterator, Sequence
 from typing import Literal
 
 import numpy as np
@@ -32,10 +35,11 @@ from planner.analysis.masking import score_cues
 from planner.errors import PlanFileError
 from planner.io.audio import Programme, iter_programme
 from planner.io.files import atomic_write_text
-from planner.io.parallel import band_worker, use_workers
-from planner.model import CueScore, GainEvent, Plan, Record
+from planner.io.parallel import band_worker, call_worker, use_workers
+from planner.model import AudioInfo, CueScore, CueTiming, GainEvent, Plan, Record
 from planner.planning.gains import STEP_DB, Scorer, analysis_thresholds
 from planner.progress import Progress
+from planner.render.renderer import gain_envelopes, processed_stems
 from planner.settings import AnalysisSettings
 
 #: A score counts as reaching its target within half a unit of its displayed last digit
@@ -132,25 +136,69 @@ def verify(
         The audio does not have the rate and channel count the plan was made for.
     """
     audio = processed_stems if processed_stems is not None else rendered
-    a, b = plan.analysis.audio, audio.info
-    if (a.sample_rate_hz, a.n_channels) != (b.sample_rate_hz, b.n_channels):
-        raise PlanFileError(
-            f"the plan was made for {a.n_channels}-channel audio at {a.sample_rate_hz} Hz, the rendered audio is "
-            f"{b.n_channels}-channel at {b.sample_rate_hz} Hz; verify the render of this plan",
-            field="analysis.audio",
-        )
-    base = AnalysisSettings.from_dict(plan.analysis.settings)
-    settings = dataclasses.replace(base, listening_level_db_spl=base.listening_level_db_spl - level_gain_db)
-    planned = {i for ev in plan.events for i in ev.cue_indices}
-    timings = [t for t in plan.analysis.timings if t.index in planned]
+    _check_format(plan, audio.info)
+    timings, settings = _planned(plan, level_gain_db)
     with contextlib.ExitStack() as stack:
         # frame features in a second process on a long programme (same scores; planner.io.parallel)
-        bands = stack.enter_context(band_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio) else None
+        bands = stack.enter_context(band_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio.info) else None
         measured = score_cues(
             iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
             activity=plan.analysis.activity, settings=settings, progress=progress, bands=bands,
             stoi=False,  # the rows compare SII or level differences only
         )  # fmt: skip
+    return verify_report(plan, measured, audio.kind, level_gain_db)
+
+
+@contextlib.contextmanager
+def verifying_stems(plan: Plan, programme: Programme) -> Iterator[Callable[[float], VerifyReport]]:
+    """Score the planned cues on the processed stems of a stems programme, beside its render.
+
+    The processed stems are computed again from the input stems and the plan
+    (:func:`~planner.render.renderer.processed_stems`: the samples the render writes to its
+    stems and sums to its output, before the loudness gain), so nothing is written to be read
+    back. They are scored at the analysed listening level, which is scoring the normalised
+    stems with the render's gain taken out of the level (module docstring), from the samples
+    themselves rather than their 24-bit rounding. On a long programme with two cores the
+    scoring runs in a second process from the moment the context opens, beside the render's
+    passes; otherwise when the report is asked for. The context gives a function from the
+    render's loudness gain (dB, recorded in the report) to the report.
+    """
+    _check_format(plan, programme.info)
+    if use_workers(programme.info):
+        with call_worker(_stems_scores, (plan, programme)) as scores:
+            yield lambda level_gain_db: verify_report(plan, scores(), "stems", level_gain_db)
+    else:
+        yield lambda level_gain_db: verify_report(plan, _stems_scores(plan, programme), "stems", level_gain_db)
+
+
+def _stems_scores(plan: Plan, programme: Programme) -> tuple[CueScore, ...]:
+    timings, settings = _planned(plan, 0.0)
+    return score_cues(
+        processed_stems(programme, gain_envelopes(plan, programme.info)), info=programme.info, kind="stems",
+        timings=timings, activity=plan.analysis.activity, settings=settings, stoi=False,
+    )  # fmt: skip
+
+
+def _check_format(plan: Plan, info: AudioInfo) -> None:
+    a = plan.analysis.audio
+    if (a.sample_rate_hz, a.n_channels) != (info.sample_rate_hz, info.n_channels):
+        raise PlanFileError(
+            f"the plan was made for {a.n_channels}-channel audio at {a.sample_rate_hz} Hz, the rendered audio is "
+            f"{info.n_channels}-channel at {info.sample_rate_hz} Hz; verify the render of this plan",
+            field="analysis.audio",
+        )
+
+
+def _planned(plan: Plan, level_gain_db: float) -> tuple[list[CueTiming], AnalysisSettings]:
+    """The planned cues' timings, and the analysis settings with ``level_gain_db`` taken out of the listening level."""
+    base = AnalysisSettings.from_dict(plan.analysis.settings)
+    settings = dataclasses.replace(base, listening_level_db_spl=base.listening_level_db_spl - level_gain_db)
+    planned = {i for ev in plan.events for i in ev.cue_indices}
+    return [t for t in plan.analysis.timings if t.index in planned], settings
+
+
+def verify_report(plan: Plan, measured: Sequence[CueScore], kind: Literal["mix", "stems"], level_gain_db: float) -> VerifyReport:
+    """Compare the measured scores of the planned cues with the plan (one row per planned cue)."""
     by_index = {s.index: s for s in measured}
     before = {s.index: s for s in plan.analysis.scores}
     thresholds = analysis_thresholds(plan.analysis.settings)
@@ -162,9 +210,9 @@ def verify(
         scored = [r.reached for r in ev_rows if r.reached is not None]
         event_reached.append(bool(scored) and all(scored))
     reachable = [ev.reachable for ev in plan.events]
-    notes = () if audio.kind == "stems" else (_MIX_NOTE,)
+    notes = () if kind == "stems" else (_MIX_NOTE,)
     return VerifyReport(
-        method=audio.kind,
+        method=kind,
         rows=tuple(rows),
         n_cues=len(rows),
         n_cues_reached=sum(r.reached is True for r in rows),
