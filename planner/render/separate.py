@@ -70,9 +70,9 @@ import math
 
 import numpy as np
 from scipy import fft
-from scipy.ndimage import uniform_filter, uniform_filter1d
 
 from planner.model import Layout, SpeechActivity
+from planner.render.boxmean import box_mean, box_mean_frames
 from planner.render.envelope import GainEnvelope
 
 #: Transform length as a duration, seconds (rounded to a power of two in samples: 2048 at 48 kHz).
@@ -422,7 +422,7 @@ class MixReducer:
             mean_t = (self._acc_t / self._acc_w).astype(np.float32)
         else:
             mean_t = np.percentile(p_t, 20.0, axis=0).astype(np.float32)
-        p_s = uniform_filter(p_t, self._smooth[0], mode="nearest")
+        p_s = box_mean(p_t, self._smooth[0])
         if ref is None:
             bg = np.broadcast_to(mean_t, p_t.shape)
         else:
@@ -432,9 +432,9 @@ class MixReducer:
             if coherent is not None and self._acc_w > 0.0:
                 share = np.clip(self._acc_c / np.maximum(self._acc_t, 1e-30), 0.0, 1.0) ** _COHERENT_SHARE_POWER
                 bg = bg + share.astype(np.float32) * (coherent - bg)
-        bg = uniform_filter(bg, self._smooth[1], mode="nearest")
+        bg = box_mean(bg, self._smooth[1])
         w = np.clip(1.0 - np.float32(_BETA.get(self._layout, 1.0)) * bg / np.maximum(p_s, np.float32(1e-30)), 0.0, 1.0)
-        w = uniform_filter(w, self._smooth[2], mode="nearest")
+        w = box_mean(w, self._smooth[2])
         w *= speech[:, None]
         return w.astype(np.float32, copy=False)
 
@@ -462,10 +462,10 @@ def _coherent_power(mid: np.ndarray, side: np.ndarray, p_mid: np.ndarray, p_side
     """
     cross = mid * np.conj(side)
     k = _COHERENCE_FRAMES
-    x_re = uniform_filter1d(cross.real, k, axis=0, mode="nearest")
-    x_im = uniform_filter1d(cross.imag, k, axis=0, mode="nearest")
-    s_mean = uniform_filter1d(p_side, k, axis=0, mode="nearest")
-    m_mean = uniform_filter1d(p_mid, k, axis=0, mode="nearest")
+    x_re = box_mean_frames(cross.real, k)
+    x_im = box_mean_frames(cross.imag, k)
+    s_mean = box_mean_frames(p_side, k)
+    m_mean = box_mean_frames(p_mid, k)
     coherent = (x_re * x_re + x_im * x_im) / np.maximum(s_mean, np.float32(1e-30))
     bias = np.float32(_COHERENCE_BIAS)
     return (np.maximum(coherent - bias * m_mean, 0.0) / (np.float32(1.0) - bias)).astype(np.float32, copy=False)
