@@ -420,12 +420,12 @@ class _Passes:
         after = self._meter()
         gain = np.float32(10.0 ** (gain_db / 20.0))
         with outputs.opened() as (writer, stem_writers), _Consumer(partial(_feed, after)) as metering, _Consumer(
-            partial(_write_stems, stem_writers)
-        ) as stems_out:
+            writer.write
+        ) as writing, _Consumer(partial(_write_stems, stem_writers)) as stems_out:
 
             def emit(y: AudioArray) -> None:
                 if y.shape[0]:
-                    writer.write(y)
+                    writing.put(y)
                     metering.put(y)
 
             for inp, out, stems in self._pieces("render: writing"):
