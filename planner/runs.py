@@ -15,7 +15,14 @@ from dataclasses import dataclass
 from functools import partial
 from pathlib import Path
 
-from planner.folder import RunResult, input_paths, relative_path, retimed_track, write_outputs
+from planner.analysis.framepower import SignalKPower
+from planner.folder import (
+    RunResult,
+    input_paths,
+    relative_path,
+    retimed_track,
+    write_outputs,
+)
 from planner.io.audio import Programme, open_programme
 from planner.io.exports import check_audio, load_plan, plan_json, write_cues_csv
 from planner.io.files import atomic_write_text, refuse_inputs
@@ -25,7 +32,13 @@ from planner.pipeline import Inputs, analyse
 from planner.planning.scenes import make_plan
 from planner.progress import Progress
 from planner.render.renderer import RenderReport, plan_sha256, render
-from planner.render.verify import VerifyReport, VerifyRow, verify, verifying_stems, write_verify_csv
+from planner.render.verify import (
+    VerifyReport,
+    VerifyRow,
+    verify,
+    verifying_stems,
+    write_verify_csv,
+)
 from planner.report.clips import extract_clips
 from planner.report.html import render_html, write_html
 from planner.settings import AnalysisSettings, PlanSettings, RenderSettings
@@ -169,19 +182,22 @@ def run_render(
     guard = inputs.all_paths()
     refuse_inputs(out_path, guard)
     from_stems = verifying_stems(plan, programme) if programme.kind == "stems" else contextlib.nullcontext(None)
+    # a mix's output is K-weighted once, by the render's output meter, for its verify
+    levels = SignalKPower(programme.info) if programme.kind == "mix" else None
     with from_stems as stems_report, ThreadPoolExecutor(1, thread_name_prefix="cueplan-hash") as pool:
         hashed = pool.submit(audio_check)
         try:
             report = render(
                 plan, programme, out_path, settings, stems_out=stems_out, progress=progress, before_writing=hashed.result,
+                k_frames=levels,
             )  # fmt: skip
         finally:
             hashed.cancel()
         if stems_report is not None:
             checked = stems_report(report.gain_applied_db)
-    if stems_report is None:
+    if levels is not None:
         rendered = open_programme(mix=out_path)
-        checked = verify(plan, rendered, progress=progress, level_gain_db=report.gain_applied_db)
+        checked = verify(plan, rendered, progress=progress, level_gain_db=report.gain_applied_db, k_power=levels.result())
     # The record names the output relative to the analysis folder, like the inputs.
     report = dataclasses.replace(report, output_path=relative_path(Path(out_path), out_dir))
     written = {"rendered": Path(out_path), "render": out_dir / RENDER_FILE}

@@ -17,6 +17,7 @@ import pytest
 from render_fixtures import OnDisk, event, make_plan, write
 
 from planner.analysis.masking import score_cues
+from planner.analysis.framepower import SignalKPower
 from planner.demo.synth import synth_programme
 from planner.io.audio import ProgrammeBlock, open_programme
 from planner.model import CueScore, Plan
@@ -145,3 +146,18 @@ def test_stems_scored_beside_the_render_match_verifying_the_written_stems(
         # the same samples, unscaled and unrounded against normalised and rounded to 24 bits
         assert got.measured_after == pytest.approx(ref.measured_after, abs=0.002)
         assert got.measured_after == pytest.approx(truth[got.cue_index].sii, abs=0.005)  # the constant-gain truth
+
+
+def test_mix_verify_with_the_output_meters_k_powers(case: tuple[OnDisk, Plan, dict[int, CueScore]], tmp_path: Path) -> None:
+    """Reference: the same verify K-weighting the rendered file itself."""
+    disk, plan, _ = case
+    programme = open_programme(mix=disk.mix)
+    levels = SignalKPower(programme.info)
+    rep = render(plan, programme, tmp_path / "out.wav", RenderSettings(loudness="-30"), k_frames=levels)
+    rendered = open_programme(mix=tmp_path / "out.wav")
+    given = verify(plan, rendered, level_gain_db=rep.gain_applied_db, k_power=levels.result())
+    alone = verify(plan, rendered, level_gain_db=rep.gain_applied_db)
+    for got, ref in zip(given.rows, alone.rows, strict=True):
+        assert got.measured_after is not None and ref.measured_after is not None
+        # the meter filtered the float32 samples, the verify reads their 24-bit rounding
+        assert got.measured_after == pytest.approx(ref.measured_after, abs=1e-3)

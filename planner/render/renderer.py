@@ -34,6 +34,7 @@ from typing import Any, Literal
 import numpy as np
 
 from planner._typing import AudioArray
+from planner.analysis.framepower import SignalKPower
 from planner.analysis.loudness import LoudnessMeter
 from planner.errors import PlanFileError, SettingsError
 from planner.io.audio import (
@@ -122,6 +123,7 @@ def render(
     progress: Progress | None = None,
     block_frames: int = DEFAULT_BLOCK_FRAMES,
     before_writing: Callable[[], object] | None = None,
+    k_frames: SignalKPower | None = None,
 ) -> RenderReport:
     """Apply a plan to a programme and write the clearer-dialogue version.
 
@@ -147,6 +149,9 @@ def render(
     before_writing : callable, optional
         Called after the measuring passes, before anything is written (a check that runs
         beside them, such as the inputs' hashes); an exception it raises stops the render.
+    k_frames : SignalKPower, optional
+        Fed the K-weighted channels of the output as it is metered, so that a verify of the
+        output mix (``verify(..., k_power=k_frames.result())``) need not K-weight it again.
 
     Returns
     -------
@@ -186,7 +191,7 @@ def render(
     with _Passes(plan, programme, envelopes, block_frames, progress or no_progress, out_path) as passes:
         return _render_passes(
             passes, plan, programme, out_path, settings, stem_paths, inputs, before_summary, fs, total_s,
-            before_writing,
+            before_writing, k_frames,
         )  # fmt: skip
 
 
@@ -202,6 +207,7 @@ def _render_passes(
     fs: int,
     total_s: float,
     before_writing: Callable[[], object] | None,
+    k_frames: SignalKPower | None,
 ) -> RenderReport:
     """The measuring and writing passes of :func:`render` and its report."""
     info = programme.info
@@ -237,7 +243,7 @@ def _render_passes(
         before_writing()
     limiter = None if ceiling is None else TruePeakLimiter(fs, info.n_channels, ceiling_dbtp=ceiling)
     writers = _Outputs(out_path, stem_paths, info, inputs, _description(sha, settings, label, ceiling, programme.kind))
-    input_summary, after_summary = passes.write(writers, gain_db, limiter, with_input=before_summary is None)
+    input_summary, after_summary = passes.write(writers, gain_db, limiter, with_input=before_summary is None, k_frames=k_frames)
     before_summary = before_summary or input_summary
     assert before_summary is not None
     if writers.clipped_output:
@@ -413,11 +419,20 @@ class _Passes:
         return gain_db, n
 
     def write(
-        self, outputs: _Outputs, gain_db: float, limiter: TruePeakLimiter | None, *, with_input: bool
+        self,
+        outputs: _Outputs,
+        gain_db: float,
+        limiter: TruePeakLimiter | None,
+        *,
+        with_input: bool,
+        k_frames: SignalKPower | None = None,
     ) -> tuple[LoudnessSummary | None, LoudnessSummary]:
-        """The writing pass: process, gain, limit, write (and measure the input when asked, and the output)."""
+        """The writing pass: process, gain, limit, write (and measure the input when asked, and
+        the output, whose K-weighted channels ``k_frames`` is fed)."""
         before = self._meter() if with_input else None
-        after = self._meter()
+        after = LoudnessMeter(
+            self._info.sample_rate_hz, self._info.layout, on_weighted=None if k_frames is None else k_frames.feed
+        )
         gain = np.float32(10.0 ** (gain_db / 20.0))
         with outputs.opened() as (writer, stem_writers), _Consumer(partial(_feed, after)) as metering, _Consumer(
             writer.write

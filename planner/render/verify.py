@@ -24,13 +24,14 @@ import contextlib
 import csv
 import dataclasses
 import io
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from collections.abc import Callable, Iterator, Sequence
 from typing import Literal
 
 import numpy as np
 
+from planner._typing import FloatArray
 from planner.analysis.masking import score_cues
 from planner.errors import PlanFileError
 from planner.io.audio import Programme, iter_programme
@@ -109,6 +110,7 @@ def verify(
     processed_stems: Programme | None = None,
     progress: Progress | None = None,
     level_gain_db: float = 0.0,
+    k_power: FloatArray | None = None,
 ) -> VerifyReport:
     """Re-score the planned cues on the rendered audio.
 
@@ -125,6 +127,10 @@ def verify(
         Called as ``progress("scoring", seconds done, seconds total)``.
     level_gain_db : float
         Loudness gain the render applied, dB (module docstring).
+    k_power : ndarray, optional
+        The rendered mix's frame K-weighted powers, measured while it was written
+        (``render(..., k_frames=...)``), so that it is not K-weighted again (scored from
+        the mix only; see :func:`~planner.analysis.masking.score_cues`).
 
     Returns
     -------
@@ -140,11 +146,14 @@ def verify(
     timings, settings = _planned(plan, level_gain_db)
     with contextlib.ExitStack() as stack:
         # frame features in a second process on a long programme (same scores; planner.io.parallel)
-        bands = stack.enter_context(band_worker(audio, plan.analysis.activity.frame_s)) if use_workers(audio.info) else None
+        given = k_power if audio.kind == "mix" else None
+        frame_s = plan.analysis.activity.frame_s
+        bands = stack.enter_context(band_worker(audio, frame_s, given)) if use_workers(audio.info) else None
         measured = score_cues(
             iter_programme(audio), info=audio.info, kind=audio.kind, timings=timings,
             activity=plan.analysis.activity, settings=settings, progress=progress, bands=bands,
             stoi=False,  # the rows compare SII or level differences only
+            k_power=given,
         )  # fmt: skip
     return verify_report(plan, measured, audio.kind, level_gain_db)
 
