@@ -16,13 +16,7 @@ from functools import partial
 from pathlib import Path
 
 from planner.analysis.framepower import SignalKPower
-from planner.folder import (
-    RunResult,
-    input_paths,
-    relative_path,
-    retimed_track,
-    write_outputs,
-)
+from planner.folder import RunResult, input_paths, relative_path, retimed_track, write_outputs
 from planner.io.audio import Programme, open_programme
 from planner.io.exports import check_audio, load_plan, plan_json, write_cues_csv
 from planner.io.files import atomic_write_text, refuse_inputs
@@ -32,13 +26,7 @@ from planner.pipeline import Inputs, analyse
 from planner.planning.scenes import make_plan
 from planner.progress import Progress
 from planner.render.renderer import RenderReport, plan_sha256, render
-from planner.render.verify import (
-    VerifyReport,
-    VerifyRow,
-    verify,
-    verifying_stems,
-    write_verify_csv,
-)
+from planner.render.verify import VerifyReport, VerifyRow, verify, verifying_stems, write_verify_csv
 from planner.report.clips import extract_clips
 from planner.report.html import render_html, write_html
 from planner.settings import AnalysisSettings, PlanSettings, RenderSettings
@@ -148,17 +136,15 @@ class RenderRun:
     written: dict[str, Path]
 
 
-def _plan_and_programme(out_dir: Path, *, check: bool = True) -> tuple[Plan, Inputs, Programme, Callable[[], None]]:
-    """The folder's plan, its inputs and programme, and the check that the audio is what the
-    plan was made from (its SHA-256; already made when ``check``, else for the caller to call)."""
+def _plan_and_programme(out_dir: Path) -> tuple[Plan, Inputs, Programme, Callable[[], None]]:
+    """The folder's plan, its inputs and programme, and the check (for the caller to make) that
+    the audio is what the plan was made from (its SHA-256; raises PlanFileError)."""
     path = Path(out_dir) / "plan.json"
     plan = load_plan(path)
     inputs = input_paths(plan.analysis, out_dir)
     roles = {"mix": inputs.mix, "dialogue": inputs.dialogue, "background": inputs.background}
     programme = open_programme(mix=inputs.mix, dialogue=inputs.dialogue, background=inputs.background)
     audio_check = partial(check_audio, plan, {k: v for k, v in roles.items() if v is not None}, path)
-    if check:
-        audio_check()
     return plan, inputs, programme, audio_check
 
 
@@ -178,7 +164,7 @@ def run_render(
     checked in a thread beside the measuring pass, before anything is written.
     """
     out_dir = Path(out_dir)
-    plan, inputs, programme, audio_check = _plan_and_programme(out_dir, check=False)
+    plan, inputs, programme, audio_check = _plan_and_programme(out_dir)
     guard = inputs.all_paths()
     refuse_inputs(out_path, guard)
     from_stems = verifying_stems(plan, programme) if programme.kind == "stems" else contextlib.nullcontext(None)
@@ -186,13 +172,10 @@ def run_render(
     levels = SignalKPower(programme.info) if programme.kind == "mix" else None
     with from_stems as stems_report, ThreadPoolExecutor(1, thread_name_prefix="cueplan-hash") as pool:
         hashed = pool.submit(audio_check)
-        try:
-            report = render(
-                plan, programme, out_path, settings, stems_out=stems_out, progress=progress, before_writing=hashed.result,
-                k_frames=levels,
-            )  # fmt: skip
-        finally:
-            hashed.cancel()
+        report = render(
+            plan, programme, out_path, settings, stems_out=stems_out, progress=progress, before_writing=hashed.result,
+            k_frames=levels,
+        )  # fmt: skip
         if stems_report is not None:
             checked = stems_report(report.gain_applied_db)
     if levels is not None:
@@ -219,7 +202,8 @@ def _write_verify(checked: VerifyReport, out_dir: Path, guard: Sequence[Path]) -
 def run_verify(out_dir: Path, rendered: Path, *, progress: Progress | None = None) -> tuple[VerifyReport, dict[str, Path]]:
     """Re-score the planned cues on a rendered file (``cueplan verify``), scored as a mix."""
     out_dir = Path(out_dir)
-    plan, inputs, _, _ = _plan_and_programme(out_dir)
+    plan, inputs, _, audio_check = _plan_and_programme(out_dir)
+    audio_check()
     guard = inputs.all_paths()
     level_gain_db = 0.0
     render_path = out_dir / RENDER_FILE

@@ -111,7 +111,11 @@ class GainEnvelope:
 
     def touches(self, start_frame: int, n: int) -> bool:
         """Whether any event acts on samples ``start_frame .. start_frame + n - 1`` (else the gain there is exactly 1.0)."""
-        return bool(((self._first < start_frame + n) & (self._stop > start_frame)).any())
+        return bool(self._hits(start_frame, n).size)
+
+    def _hits(self, start_frame: int, n: int) -> np.ndarray:
+        """Indices of the events acting on samples ``start_frame .. start_frame + n - 1``."""
+        return np.flatnonzero((self._first < start_frame + n) & (self._stop > start_frame))
 
     def block_db(self, start_frame: int, n: int) -> np.ndarray:
         """Gain in dB for samples ``start_frame .. start_frame + n - 1``, float64 ``(n,)``; 0.0 outside events."""
@@ -124,7 +128,7 @@ class GainEnvelope:
         the gain there is the event's own (the same values as evaluating ``w`` everywhere).
         """
         out = np.zeros(n, dtype=np.float64)
-        hit = np.flatnonzero((self._first < start_frame + n) & (self._stop > start_frame))
+        hit = self._hits(start_frame, n)
         if hit.size == 0:
             return out, 0, 0
         fs = float(self.sample_rate_hz)

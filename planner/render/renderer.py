@@ -37,14 +37,7 @@ from planner._typing import AudioArray
 from planner.analysis.framepower import SignalKPower
 from planner.analysis.loudness import LoudnessMeter
 from planner.errors import PlanFileError, SettingsError
-from planner.io.audio import (
-    DEFAULT_BLOCK_FRAMES,
-    STEM_LENGTH_TOLERANCE_FRAMES,
-    AudioWriter,
-    Programme,
-    ProgrammeBlock,
-    iter_programme,
-)
+from planner.io.audio import DEFAULT_BLOCK_FRAMES, STEM_LENGTH_TOLERANCE_FRAMES, AudioWriter, Programme, ProgrammeBlock, iter_programme
 from planner.io.exports import plan_json_chunks
 from planner.io.files import refuse_inputs
 from planner.model import AudioInfo, LoudnessSummary, Plan, Record
@@ -337,8 +330,9 @@ class _Passes:
             self._cache.unlink(missing_ok=True)
             self._cache = None
 
-    def _meter(self) -> LoudnessMeter:
-        return LoudnessMeter(self._info.sample_rate_hz, self._info.layout)
+    def _meter(self, k_frames: SignalKPower | None = None) -> LoudnessMeter:
+        on_weighted = None if k_frames is None else k_frames.feed
+        return LoudnessMeter(self._info.sample_rate_hz, self._info.layout, on_weighted=on_weighted)
 
     def _pieces(
         self, stage: str, *, record: bool = False
@@ -430,9 +424,7 @@ class _Passes:
         """The writing pass: process, gain, limit, write (and measure the input when asked, and
         the output, whose K-weighted channels ``k_frames`` is fed)."""
         before = self._meter() if with_input else None
-        after = LoudnessMeter(
-            self._info.sample_rate_hz, self._info.layout, on_weighted=None if k_frames is None else k_frames.feed
-        )
+        after = self._meter(k_frames)
         gain = np.float32(10.0 ** (gain_db / 20.0))
         with outputs.opened() as (writer, stem_writers), _Consumer(partial(_feed, after)) as metering, _Consumer(
             writer.write

@@ -308,10 +308,7 @@ class MixReducer:
         target = self._target(seg)
         frames = np.lib.stride_tricks.sliding_window_view(target, n, axis=1)[:, ::h] * self._win
         spec = fft.rfft(frames[:1], axis=-1)
-        if self._lift is not None and self._lift.touches(p, q - p):
-            g_d = self._lift.block(p, q - p)
-        else:
-            g_d = np.ones(q - p, dtype=np.float32)
+        g_d = self._lift.block(p, q - p) if self._lift is not None else np.ones(q - p, dtype=np.float32)
         g_b = self._env.block(p, q - p)
         moving = bool((g_d != 1.0).any() or (g_b != 1.0).any())
         ref, side = self._reference(seg)

@@ -4,11 +4,11 @@ The rendered programme is scored by :func:`planner.analysis.masking.score_cues` 
 plan's own aligned timings, speech activity and analysis settings, so the only thing that
 differs from the analysis is the audio: read from the rendered files (:func:`verify`), or,
 for a stems render, the processed stems computed again beside the render
-(:func:`verifying_stems`, so that nothing is written to be read back). With the processed stems the scores are exact
-(``kind="stems"``); from the rendered mix alone they are estimates (``kind="mix"``, with
-the estimators' confidence), and conservative ones: the speech-free context the estimators
-read around a cue was not ducked, so they take the background under the cue to be louder
-than it is. The prediction per cue is the planner's own re-score of the
+(:func:`verifying_stems`, so that nothing is written to be read back). With the processed
+stems the scores are exact (``kind="stems"``); from the rendered mix alone they are
+estimates (``kind="mix"``, with the estimators' confidence), and conservative ones: the
+speech-free context the estimators read around a cue was not ducked, so they take the
+background under the cue to be louder than it is. The prediction per cue is the planner's own re-score of the
 cue's analysed spectra (or loudness difference) under the event's lift and cut
 (:class:`planner.planning.gains.Scorer`).
 
