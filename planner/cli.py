@@ -23,6 +23,7 @@ from typing import Annotated, Any, TypeVar
 import typer
 from rich.console import Console
 
+from planner.allocator import reuse_freed_buffers
 from planner.errors import CueplanError, InputError, OutputError
 
 app = typer.Typer(
@@ -357,6 +358,7 @@ _mount_triage()
 
 def main() -> None:
     """Console-script entry point."""
+    reuse_freed_buffers()
     app()
 
 

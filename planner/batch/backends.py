@@ -20,6 +20,7 @@ from concurrent.futures.process import BrokenProcessPool
 from types import TracebackType
 from typing import Any, Protocol
 
+from planner.allocator import reuse_freed_buffers
 from planner.errors import InputError
 
 #: ``(episode id, stage, done, total)`` sink for stage reports.
@@ -51,6 +52,7 @@ _stage_queue: Any = None
 def _init_worker(stages: Any) -> None:
     global _stage_queue
     _stage_queue = stages
+    reuse_freed_buffers()  # as the command line does (planner.allocator)
     # Never block a worker's exit on a coordinator that stopped reading.
     stages.cancel_join_thread()
 
