@@ -21,7 +21,7 @@ from scipy.signal import butter, sosfilt
 
 from planner.analysis.cuepass import frame_runs
 from planner.analysis.hearing import hearing_profile
-from planner.analysis.masking import score_cues, verdict
+from planner.analysis.masking import score_cues, score_spans, verdict
 from planner.analysis.sii import SII_BANDS_HZ, one_third_octave_bandwidths_hz, sii
 from planner.analysis.verdicts import SBLD_AMBIENCE_LU
 from planner.errors import InputError
@@ -394,3 +394,63 @@ def test_frame_runs_give_each_sample_the_frame_that_holds_it(rate_hz: int, b0: i
     first, counts = frame_runs(b0, n, hop)
     assert counts.sum() == n and (counts > 0).all()  # every frame listed holds a sample
     assert np.repeat(np.arange(first, first + counts.shape[0]), counts).tolist() == expected
+
+
+# ----------------------------------------------------------------------------- skipping audio
+
+
+def _stems_blocks(d32: np.ndarray, b32: np.ndarray, ranges: list[tuple[int, int]], block: int) -> list[ProgrammeBlock]:
+    return [
+        ProgrammeBlock(s, d32[s : min(s + block, stop)] + b32[s : min(s + block, stop)], d32[s : min(s + block, stop)],
+                       b32[s : min(s + block, stop)])
+        for start, stop in ranges for s in range(start, stop, block)
+    ]  # fmt: skip
+
+
+@pytest.mark.parametrize("layout", ["stereo", "5.1"])
+def test_stems_scored_from_their_spans_alone_equal_a_pass_over_everything(layout: str, rng: np.random.Generator) -> None:
+    # Speech-shaped noise bursts over a background that changes level, with speech gaps in the
+    # activity; cues far apart, so that score_spans skips audio between them. The reference
+    # is the same scoring over every sample from 0, which the tests above check against
+    # pyloudnorm, sii() and pystoi.
+    n = 40 * FS
+    n_sp = len(SPEAKERS[layout])
+    dialogue = _spread([_noise(rng, n, lowpass_hz=4000.0) * (0.1 + 0.1 * (np.arange(n) // FS % 3 == 0))], layout)
+    background = _spread([_noise(rng, n, highpass_hz=300.0) * np.repeat(rng.uniform(0.01, 0.2, 40), FS)] * n_sp, layout)
+    # cue 3's context (3 s) reaches back into the span of cues 1-2, its lead-in (0.5 s) does not
+    timings = [_timing(1, 2.0, 4.5), _timing(2, 4.8, 6.0), _timing(3, 8.0, 10.0), _timing(4, 15.25, 18.0),
+               _timing(5, 30.0, 33.3)]  # fmt: skip
+    speech = rng.random(-(-n // HOP)) < 0.8
+    activity = _activity(speech.size, speech)
+    info = AudioInfo(FS, dialogue.shape[1], n, layout, "WAV", "FLOAT", None)  # type: ignore[arg-type]
+    spans = score_spans(timings, info, 0.01)
+    assert len(spans) == 4 and sum(b - a for a, b in spans) < n / 2  # cues 1-2 share a span; most audio is skipped
+    d32, b32 = dialogue.astype(np.float32), background.astype(np.float32)
+    common = dict(info=info, kind="stems", timings=timings, activity=activity, settings=AnalysisSettings(), stoi=False)
+    whole = score_cues(_stems_blocks(d32, b32, [(0, n)], 30011), **common)  # type: ignore[arg-type]
+    skipped = score_cues(_stems_blocks(d32, b32, list(spans), 30011), **common)  # type: ignore[arg-type]
+    for a, b in zip(whole, skipped, strict=True):
+        assert a.index == b.index and a.sii is not None
+        for name in ("sii", "sii_short", "sbld_lu", "speech_db", "background_db"):
+            assert getattr(b, name) == pytest.approx(getattr(a, name), abs=1e-9), name
+        assert b.sii_by_profile == pytest.approx(a.sii_by_profile, abs=1e-9)
+
+
+def test_skipping_into_a_cues_lead_in_or_span_is_refused(rng: np.random.Generator) -> None:
+    n = 20 * FS
+    d32 = (0.1 * rng.standard_normal((n, 2))).astype(np.float32)
+    info = AudioInfo(FS, 2, n, "stereo", "WAV", "FLOAT", None)
+    common = dict(info=info, kind="stems", activity=_activity(n // HOP), settings=AnalysisSettings(), stoi=False)
+    # resuming 0.3 s before a cue: its first frames would come from unsettled band windows
+    resume = [(0, FS), (970 * HOP, n)]
+    with pytest.raises(InputError, match="starts within 0.5 s"):
+        score_cues(_stems_blocks(d32, d32, resume, FS), timings=[_timing(1, 10.0, 12.0)], **common)  # type: ignore[arg-type]
+    # leaving a cue before its end
+    cut = [(0, 11 * FS), (15 * FS, n)]
+    with pytest.raises(InputError, match="still being read"):
+        score_cues(_stems_blocks(d32, d32, cut, FS), timings=[_timing(1, 10.0, 12.0)], **common)  # type: ignore[arg-type]
+    # a mix cannot skip: its noise tracker follows the whole programme
+    with pytest.raises(InputError, match="contiguous"):
+        blocks = [ProgrammeBlock(s, d32[s : s + FS], None, None) for s in (0, 5 * FS)]
+        score_cues(blocks, info=info, kind="mix", timings=[_timing(1, 10.0, 12.0)],  # type: ignore[arg-type]
+                   activity=_activity(n // HOP), settings=AnalysisSettings(), stoi=False)  # fmt: skip

@@ -26,7 +26,7 @@ from planner.errors import OutputError, PlanFileError, SettingsError
 from planner.io.audio import open_programme
 from planner.model import Plan
 from planner.render.envelope import GainEnvelope
-from planner.render.limiter import TruePeakLimiter
+from planner.render.limiter import TruePeakLimiter, interpolator_phases
 from planner.render.renderer import STEM_NAMES, plan_sha256, render
 from planner.render.separate import MixReducer
 from planner.settings import RenderSettings
@@ -206,6 +206,28 @@ def test_limiter_passes_quiet_audio_bit_for_bit(rng: np.random.Generator) -> Non
     assert np.array_equal(y[:9_000], x[:9_000])  # before the look-ahead reaches the burst
     assert np.array_equal(y[-20_000:], x[-20_000:])  # after the release has returned to 0 dB
     assert not np.array_equal(y[10_000:10_050], x[10_000:10_050])
+
+
+def test_limiter_detection_skips_only_where_no_peak_can_reach_the_threshold(rng: np.random.Generator) -> None:
+    # Reference: every detection index interpolated by brute force (each phase convolved over
+    # the whole signal), r = min(1, threshold / peak); the limiter interpolates only where a
+    # sample of the window can reach the threshold, in blocks of awkward sizes.
+    x = (0.05 * rng.standard_normal((50_000, 2))).astype(np.float32)
+    x[7_000:7_040] *= 14.0
+    x[31_000:31_003, 1] = 0.95
+    limiter = TruePeakLimiter(48000, 2, ceiling_dbtp=-1.0)
+    r = np.concatenate([limiter._required(x[a : a + 9_973]) for a in range(0, x.shape[0], 9_973)])
+    phases = interpolator_phases().astype(np.float32)
+    padded = np.concatenate([np.zeros((phases.shape[0] - 1, 2), np.float32), x])
+    peak = np.zeros(x.shape[0])
+    for c in range(2):
+        for p in range(phases.shape[1]):
+            y = np.convolve(padded[:, c].astype(np.float64), phases[:, p].astype(np.float64), mode="valid")
+            peak = np.maximum(peak, np.abs(y))
+    threshold = 10.0 ** ((-1.0 - 0.1) / 20.0)  # the ceiling less the default margin
+    expected = np.minimum(1.0, threshold / np.maximum(peak, 1e-30))
+    assert (expected < 1.0).sum() > 20  # the bursts do reach it
+    np.testing.assert_allclose(r, expected, rtol=1e-6)
 
 
 def test_interrupted_render_leaves_no_partial_file(stereo: OnDisk, tmp_path: Path) -> None:

@@ -71,7 +71,18 @@ from planner.units import nearest_int
 if TYPE_CHECKING:
     from planner.io.audio import ProgrammeBlock
 
-__all__ = ["score_cues", "verdict"]
+__all__ = ["score_cues", "score_spans", "verdict"]
+
+#: Audio read before a cue's span where a stems pass resumes after a gap, seconds: the band
+#: windows (80 ms) and the decimator before them, the ESII windows (35 ms) and the K-weighting
+#: (its slowest pole, 0.995 at 48 kHz, decays by over 1000 dB in 0.5 s) have all settled, so
+#: the cue's frames are those of a pass from sample 0 (tests/test_masking.py).
+SKIP_LEAD_S = 0.5
+#: Audio read after a cue's span, seconds: enough for the band windows of its last frames.
+SKIP_TAIL_S = 0.25
+#: Gaps shorter than this are read through rather than skipped, seconds (restarting the
+#: features costs about as much as analysing a second of stereo stems).
+SKIP_MIN_GAP_S = 1.0
 
 #: STOI jobs that may wait for the thread before the pass waits for the oldest (each holds a cue's audio).
 _STOI_WAITING = 8
@@ -137,18 +148,60 @@ class _ScoringPass:
             )
 
     def feed(self, block: ProgrammeBlock, bands: list[FloatArray | None] | None = None) -> None:
-        """Add one block (contiguous with the previous one); ``bands``: its band powers if computed elsewhere."""
+        """Add one block (contiguous with the previous one, or stems after a gap: :func:`score_spans`);
+        ``bands``: its band powers if computed elsewhere."""
         if block.start_frame != self.samples_done:
-            raise InputError(
-                f"audio blocks must be contiguous from sample 0; got a block at {block.start_frame}, "
-                f"expected {self.samples_done}; pass the blocks of iter_programme from the start"
-            )
+            self._skip_to(block.start_frame, given_bands=bands is not None)
         end = self.samples_done + block.n_frames
         self._open(end)
         self._samples(block)
         self._frames(self.features.process(block, bands))
         self.samples_done = end
         self._close(final=False)
+
+    def _skip_to(self, start: int, *, given_bands: bool) -> None:
+        """Restart the features at sample ``start`` after a gap (stems only; see :func:`score_spans`).
+
+        Every open cue whose span has begun must have all of it before the gap (it is scored
+        now; the others wait again), and the next cue's span must start at least
+        :data:`SKIP_LEAD_S` after ``start``, where the restarted band windows and K-weighting
+        have settled.
+        """
+        frame = nearest_int(start / self.hop)
+        if (
+            self.kind != "stems"
+            or given_bands
+            or start < self.samples_done
+            or frame_start(frame, self.hop) != start
+            or frame < self.frames_done
+        ):
+            raise InputError(
+                f"audio blocks must be contiguous from sample 0; got a block at {start}, "
+                f"expected {self.samples_done}; pass the blocks of iter_programme from the start (stems scored "
+                "without bands= may skip ahead to the first sample of a frame, as score_spans gives)"
+            )
+        lead = nearest_int(SKIP_LEAD_S / self.frame_s)
+        # cues opened for their context whose span has not begun wait again (stems scores
+        # read no context)
+        waiting = [c for c in self.open if c.f0 >= self.frames_done and c.s0 >= self.samples_done]
+        self.open = [c for c in self.open if c not in waiting]
+        self.pending = sorted([c.timing for c in waiting] + self.pending, key=lambda t: (t.aligned_start_s, t.index))
+        for cue in self.open:
+            if cue.f1 > self.frames_done or cue.s1 > self.samples_done:
+                raise InputError(
+                    f"cue {cue.timing.index} is still being read where the audio skips to sample {start}; "
+                    "read the sample ranges score_spans gives"
+                )
+        if self.pending and nearest_int(self.pending[0].aligned_start_s / self.frame_s) < frame + lead:
+            raise InputError(
+                f"cue {self.pending[0].index} starts within "
+                f"{SKIP_LEAD_S:g} s of sample {start}, where the audio resumes; read the sample ranges score_spans gives"
+            )
+        self._close(final=True)
+        self.features = ProgrammeFeatures(self.info, self.kind, frame_s=self.frame_s)
+        self.windows = TrailingMean(esii_frames(self.frame_s))
+        self.clip_carry = np.zeros(CLIP_RUN - 1, dtype=bool)
+        self.frames_done, self.samples_done = frame, start
 
     def finish(self, bands: list[FloatArray | None] | None = None) -> tuple[CueScore, ...]:
         """Scores of every cue, in index order, after the last block (``bands``: the band powers' flush)."""
@@ -430,6 +483,33 @@ def score_cues(
         return scoring.finish(None if given is None else _next_bands(given))
     finally:
         scoring.close()
+
+
+def score_spans(timings: Sequence[CueTiming], info: AudioInfo, frame_s: float) -> tuple[tuple[int, int], ...]:
+    """The sample ranges ``[start, stop)`` a stems scoring pass must read to score these cues alone.
+
+    Each cue's span with :data:`SKIP_LEAD_S` before it and :data:`SKIP_TAIL_S` after, ranges
+    closer than :data:`SKIP_MIN_GAP_S` merged, every range starting on the first sample of an
+    analysis frame. :func:`score_cues` of the stems blocks of these ranges alone (no
+    ``bands=``) gives the scores of a pass over the whole programme. A frame hop that is not
+    a whole number of samples gives the whole programme.
+    """
+    hop = frame_s * info.sample_rate_hz
+    if not timings or abs(hop - round(hop)) > 1e-9:
+        return ((0, info.n_frames),) if timings else ()
+    lead, tail = nearest_int(SKIP_LEAD_S / frame_s), nearest_int(SKIP_TAIL_S * info.sample_rate_hz)
+    min_gap = nearest_int(SKIP_MIN_GAP_S * info.sample_rate_hz)
+    spans: list[list[int]] = []
+    for t in sorted(timings, key=lambda t: (t.aligned_start_s, t.index)):
+        f0 = nearest_int(t.aligned_start_s / frame_s)
+        f1 = max(nearest_int(t.aligned_end_s / frame_s), f0)
+        start = frame_start(max(f0 - lead, 0), hop)
+        stop = min(frame_start(f1, hop) + tail, info.n_frames)
+        if spans and start - spans[-1][1] < min_gap:
+            spans[-1][1] = max(spans[-1][1], stop)
+        else:
+            spans.append([start, stop])
+    return tuple((a, b) for a, b in spans if b > a)
 
 
 def _next_bands(given: Iterator[list[FloatArray | None]]) -> list[FloatArray | None]:

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.ndimage import maximum_filter1d, minimum_filter1d
+from scipy.ndimage import minimum_filter1d
 
 from planner.analysis.firdesign import kaiser_lowpass
 from planner.analysis.truepeak import TRUE_PEAK_FIR
@@ -155,14 +155,22 @@ class TruePeakLimiter:
         xh = np.concatenate([self._x_hist, x])
         self._x_hist = xh[-(taps - 1) :].copy()
         r = np.ones(n, dtype=np.float64)
+        if max(float(xh.max()), -float(xh.min())) * self._bound <= self._threshold:
+            # no window's sample peak can reach the threshold (the usual block, found by two
+            # fast reductions; a NaN fails the test and takes the path below)
+            return r
         mag = np.abs(xh[:, 0])
         for c in range(1, xh.shape[1]):
             np.maximum(mag, np.abs(xh[:, c]), out=mag)
-        # Sample peak over each detection index's window x[m - taps + 1 .. m] (the window
-        # ends at xh index m + taps - 1); only where it could reach the threshold through the
-        # interpolator's gain is the interpolation computed.
-        reach = maximum_filter1d(mag, taps, origin=(taps - 1) // 2)[taps - 1 :]
-        need = np.flatnonzero(reach * self._bound > self._threshold)
+        # A detection index's window x[m - taps + 1 .. m] (xh indices m .. m + taps - 1) can
+        # reach the threshold through the interpolator's gain only if one of its samples can
+        # (scaling by the bound keeps the order of float32 values, so this is the window's
+        # sample peak tested); only there is the interpolation computed.
+        hot = mag * self._bound > self._threshold
+        if not hot.any():
+            return r
+        counts = np.concatenate([[0], np.cumsum(hot, dtype=np.int64)])
+        need = np.flatnonzero(counts[taps : taps + n] > counts[:n])
         if need.size:
             # Row j of a window holds x[m - j] (xh index m + taps - 1 - j), matching the phase rows.
             windows = xh[need[:, None] + (taps - 1) - np.arange(taps)[None, :]]  # (k, taps, ch)

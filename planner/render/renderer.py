@@ -24,7 +24,7 @@ import os
 import queue
 import tempfile
 import threading
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
 from functools import partial
@@ -511,25 +511,37 @@ def gain_envelopes(plan: Plan, info: AudioInfo) -> tuple[GainEnvelope, GainEnvel
 
 
 def processed_stems(
-    programme: Programme, envelopes: tuple[GainEnvelope, GainEnvelope], *, block_frames: int = DEFAULT_BLOCK_FRAMES
+    programme: Programme,
+    envelopes: tuple[GainEnvelope, GainEnvelope],
+    *,
+    block_frames: int = DEFAULT_BLOCK_FRAMES,
+    spans: Sequence[tuple[int, int]] | None = None,
 ) -> Iterator[ProgrammeBlock]:
     """The processed stems of a stems programme, block by block, before the loudness gain.
 
     Each block is ``ProgrammeBlock(start, d + b, d, b)``: the dialogue and background times
     their envelopes (:func:`gain_envelopes`), the samples :func:`render` writes to
-    ``stems_out`` and sums to its output (times its loudness gain).
+    ``stems_out`` and sums to its output (times its loudness gain). ``spans``: only these
+    sample ranges ``[start, stop)``, in order (default the whole programme).
     """
-    for _, processed in _stem_blocks(programme, envelopes, block_frames):
+    for _, processed in _stem_blocks(programme, envelopes, block_frames, spans):
         yield processed
 
 
 def _stem_blocks(
-    programme: Programme, envelopes: tuple[GainEnvelope, GainEnvelope], block_frames: int
+    programme: Programme,
+    envelopes: tuple[GainEnvelope, GainEnvelope],
+    block_frames: int,
+    spans: Sequence[tuple[int, int]] | None = None,
 ) -> Iterator[tuple[ProgrammeBlock, ProgrammeBlock]]:
     """Each input block of a stems programme with its processed block (:func:`processed_stems`)."""
     if programme.kind != "stems":
         raise SettingsError("processed stems need a stems programme (dialogue and background)")
-    for blk in iter_programme(programme, block_frames=block_frames):
+    ranges = [(0, None)] if spans is None else spans
+    blocks = (
+        blk for a, b in ranges for blk in iter_programme(programme, block_frames=block_frames, start_frame=a, stop_frame=b)
+    )
+    for blk in blocks:
         assert blk.dialogue is not None and blk.background is not None
         n = blk.n_frames
         d, b = (

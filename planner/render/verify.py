@@ -32,7 +32,7 @@ from typing import Literal
 import numpy as np
 
 from planner._typing import FloatArray
-from planner.analysis.masking import score_cues
+from planner.analysis.masking import score_cues, score_spans
 from planner.errors import PlanFileError
 from planner.io.audio import Programme, iter_programme
 from planner.io.files import atomic_write_text
@@ -181,10 +181,13 @@ def verifying_stems(plan: Plan, programme: Programme) -> Iterator[Callable[[floa
 
 
 def _stems_scores(plan: Plan, programme: Programme) -> tuple[CueScore, ...]:
+    """The planned cues scored on the processed stems, reading only the audio around them (:func:`score_spans`)."""
     timings, settings = _planned(plan, 0.0)
+    activity = plan.analysis.activity
+    spans = score_spans(timings, programme.info, activity.frame_s)
     return score_cues(
-        processed_stems(programme, gain_envelopes(plan, programme.info)), info=programme.info, kind="stems",
-        timings=timings, activity=plan.analysis.activity, settings=settings, stoi=False,
+        processed_stems(programme, gain_envelopes(plan, programme.info), spans=spans), info=programme.info,
+        kind="stems", timings=timings, activity=activity, settings=settings, stoi=False,
     )  # fmt: skip
 
 
