@@ -114,7 +114,7 @@ class _ScoringPass:
         )
         n_tracked = N_FEATURES * (2 if info.layout == "5.1" else 1)
         self.tracker = MinimumStatistics(n_tracked, frame_s=self.frame_s) if kind == "mix" else None
-        self.pending = sorted(timings, key=lambda t: (t.aligned_start_s, t.index))
+        self.pending = sorted(timings, key=_by_start)
         self.context_frames = nearest_int(CONTEXT_S / self.frame_s)
         self.open: list[CueAccumulator] = []
         self.scores: dict[int, CueScore] = {}
@@ -173,7 +173,6 @@ class _ScoringPass:
             or given_bands
             or start < self.samples_done
             or frame_start(frame, self.hop) != start
-            or frame < self.frames_done
         ):
             raise InputError(
                 f"audio blocks must be contiguous from sample 0; got a block at {start}, "
@@ -185,7 +184,7 @@ class _ScoringPass:
         # read no context)
         waiting = [c for c in self.open if c.f0 >= self.frames_done and c.s0 >= self.samples_done]
         self.open = [c for c in self.open if c not in waiting]
-        self.pending = sorted([c.timing for c in waiting] + self.pending, key=lambda t: (t.aligned_start_s, t.index))
+        self.pending = sorted([c.timing for c in waiting] + self.pending, key=_by_start)
         for cue in self.open:
             if cue.f1 > self.frames_done or cue.s1 > self.samples_done:
                 raise InputError(
@@ -495,12 +494,14 @@ def score_spans(timings: Sequence[CueTiming], info: AudioInfo, frame_s: float) -
     a whole number of samples gives the whole programme.
     """
     hop = frame_s * info.sample_rate_hz
-    if not timings or abs(hop - round(hop)) > 1e-9:
-        return ((0, info.n_frames),) if timings else ()
+    if not timings:
+        return ()
+    if abs(hop - round(hop)) > 1e-9:
+        return ((0, info.n_frames),)
     lead, tail = nearest_int(SKIP_LEAD_S / frame_s), nearest_int(SKIP_TAIL_S * info.sample_rate_hz)
     min_gap = nearest_int(SKIP_MIN_GAP_S * info.sample_rate_hz)
     spans: list[list[int]] = []
-    for t in sorted(timings, key=lambda t: (t.aligned_start_s, t.index)):
+    for t in sorted(timings, key=_by_start):
         f0 = nearest_int(t.aligned_start_s / frame_s)
         f1 = max(nearest_int(t.aligned_end_s / frame_s), f0)
         start = frame_start(max(f0 - lead, 0), hop)
@@ -510,6 +511,11 @@ def score_spans(timings: Sequence[CueTiming], info: AudioInfo, frame_s: float) -
         else:
             spans.append([start, stop])
     return tuple((a, b) for a, b in spans if b > a)
+
+
+def _by_start(timing: CueTiming) -> tuple[float, int]:
+    """Sort key: cues in order of their aligned start."""
+    return timing.aligned_start_s, timing.index
 
 
 def _next_bands(given: Iterator[list[FloatArray | None]]) -> list[FloatArray | None]:

@@ -155,10 +155,6 @@ class TruePeakLimiter:
         xh = np.concatenate([self._x_hist, x])
         self._x_hist = xh[-(taps - 1) :].copy()
         r = np.ones(n, dtype=np.float64)
-        if max(float(xh.max()), -float(xh.min())) * self._bound <= self._threshold:
-            # no window's sample peak can reach the threshold (the usual block, found by two
-            # fast reductions; a NaN fails the test and takes the path below)
-            return r
         mag = np.abs(xh[:, 0])
         for c in range(1, xh.shape[1]):
             np.maximum(mag, np.abs(xh[:, c]), out=mag)
@@ -170,15 +166,14 @@ class TruePeakLimiter:
         if not hot.any():
             return r
         counts = np.concatenate([[0], np.cumsum(hot, dtype=np.int64)])
-        need = np.flatnonzero(counts[taps : taps + n] > counts[:n])
-        if need.size:
-            # Row j of a window holds x[m - j] (xh index m + taps - 1 - j), matching the phase rows.
-            windows = xh[need[:, None] + (taps - 1) - np.arange(taps)[None, :]]  # (k, taps, ch)
-            out = np.abs(windows.transpose(0, 2, 1) @ self._phases).reshape(need.size, -1)
-            peak = out[:, 0].copy()
-            for col in range(1, out.shape[1]):
-                np.maximum(peak, out[:, col], out=peak)
-            r[need] = np.minimum(1.0, self._threshold / np.maximum(peak.astype(np.float64), 1e-30))
+        need = np.flatnonzero(counts[taps : taps + n] > counts[:n])  # not empty: every hot sample is in a window
+        # Row j of a window holds x[m - j] (xh index m + taps - 1 - j), matching the phase rows.
+        windows = xh[need[:, None] + (taps - 1) - np.arange(taps)[None, :]]  # (k, taps, ch)
+        out = np.abs(windows.transpose(0, 2, 1) @ self._phases).reshape(need.size, -1)
+        peak = out[:, 0].copy()
+        for col in range(1, out.shape[1]):
+            np.maximum(peak, out[:, col], out=peak)
+        r[need] = np.minimum(1.0, self._threshold / np.maximum(peak.astype(np.float64), 1e-30))
         return r
 
     def _gain(self, x: np.ndarray) -> np.ndarray:
